@@ -1,0 +1,4 @@
+"""pocketforest: make random forests transportable."""
+from __future__ import annotations
+
+__version__ = "0.1.0"
