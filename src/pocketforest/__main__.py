@@ -1,0 +1,6 @@
+"""`python -m pocketforest`."""
+import sys
+
+from .cli import main
+
+sys.exit(main())

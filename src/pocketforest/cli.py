@@ -1,0 +1,162 @@
+"""The `pocketforest` command line: verbs a user would say, one-line errors, exit codes 0/1/2."""
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import sys
+import traceback
+from pathlib import Path
+
+from . import __version__
+from .errors import InputError
+
+DEMO_DATA = Path(__file__).resolve().parents[2] / "demo_data" / "greenhouse_trial.csv"
+DEMO_TARGET = "yield_kg"
+
+
+class _Parser(argparse.ArgumentParser):
+    """Usage mistakes become one `error:` line and exit 2, like every other bad input."""
+
+    def error(self, message: str) -> None:  # type: ignore[override]
+        raise InputError(f"{message} (see `{self.prog} --help`)")
+
+
+def _common(p: argparse.ArgumentParser) -> None:
+    p.add_argument("-q", "--quiet", action="store_true", help="no progress messages on stderr")
+    p.add_argument("--debug", action="store_true", help="show a traceback on errors")
+
+
+def _distill_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--out", help="bundle folder (default exports/<data file stem>)")
+    p.add_argument("--task", choices=["auto", "regression", "classification"], default="auto")
+    p.add_argument("--trees", type=int, default=500, help="trees in the forest (default 500)")
+    p.add_argument("--leaf-size", type=int, default=5, help="minimum rows per forest leaf (default 5)")
+    p.add_argument("--tree-depth", type=int, help="surrogate depth (default: smallest reaching the fidelity target)")
+    p.add_argument("--fidelity-target", type=float, default=0.9, help="fidelity the default depth must reach")
+    p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
+    p.add_argument("--split", default="0.5,0.25,0.25", help="discovery,confirmation,test shares")
+    p.add_argument("--categorical", nargs="+", default=[], metavar="COL", help="treat these columns as categories")
+    p.add_argument("--ignore", nargs="+", default=[], metavar="COL", help="leave these columns out")
+    p.add_argument("--family", choices=["gaussian", "binomial", "multinomial", "poisson"],
+                   help="GLM family for the equation (default from the task)")
+    p.add_argument("--robust", action="store_true", help="sandwich (robust) standard errors for the equation")
+    p.add_argument("--force", action="store_true", help="replace an existing bundle")
+    p.add_argument("--json", action="store_true", help="print the summary as JSON")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = _Parser(prog="pocketforest", description="Fit a random forest, distil it into an equation "
+                     "and a small tree, and export a verified bundle that runs anywhere.")
+    parser.add_argument("--version", action="version", version=f"pocketforest {__version__}")
+    sub = parser.add_subparsers(dest="command", parser_class=_Parser, metavar="COMMAND")
+
+    p = sub.add_parser("distill", help="the whole job: forest, terms, equation, tree, bundle")
+    p.add_argument("data", help=".csv, .tsv or .parquet table")
+    p.add_argument("--target", required=True, help="the outcome column")
+    _distill_options(p)
+    _common(p)
+
+    p = sub.add_parser("demo", help="run distill on the committed demo data")
+    p.add_argument("--out", default="exports/demo", help="bundle folder (default exports/demo)")
+    p.add_argument("--force", action="store_true", default=True, help=argparse.SUPPRESS)
+    p.add_argument("--json", action="store_true", help="print the summary as JSON")
+    _common(p)
+
+    p = sub.add_parser("score", help="predict new rows with a bundle's ONNX model")
+    p.add_argument("bundle")
+    p.add_argument("data")
+    p.add_argument("--model", choices=["forest", "tree", "equation"], required=True)
+    p.add_argument("--out", help=".csv or .parquet file (default: CSV on stdout)")
+    p.add_argument("--keep", nargs="+", default=[], metavar="COL", help="input columns to copy into the output")
+    _common(p)
+
+    p = sub.add_parser("verify", help="check a bundle's files and every exported form against its reference rows")
+    p.add_argument("bundle")
+    _common(p)
+    return parser
+
+
+def _default_out(data: str) -> str:
+    return str(Path("exports") / Path(data).stem)
+
+
+def _run_distill(data: str, target: str, args: argparse.Namespace) -> int:
+    from .intake import load
+    from .pipeline import Settings, distill
+    from .split import parse_fractions
+    from .summary import summary_dict, summary_text
+
+    if getattr(args, "trees", 500) < 1:
+        raise InputError("--trees must be at least 1")
+    out = args.out or _default_out(data)
+    if Path(out).exists() and not args.force:
+        raise InputError(f"{out} already exists: choose another --out or pass --force to replace it")
+    table = load(data, target, task=args.task, categorical=args.categorical, ignore=args.ignore)
+    for note in table.notes:
+        if not args.quiet:
+            print(f"warning: {note}", file=sys.stderr)
+    settings = Settings(trees=args.trees, min_samples_leaf=args.leaf_size, tree_depth=args.tree_depth,
+                        target_fidelity=args.fidelity_target, seed=args.seed, split=parse_fractions(args.split),
+                        family=args.family, robust=args.robust, quiet=args.quiet)
+    result = distill(table, settings)
+    path = result.write(out, force=args.force)
+    if args.json:
+        print(json.dumps(summary_dict(result, path), indent=2))
+    else:
+        print(summary_text(result, path))
+    return 0
+
+
+def _demo_args(args: argparse.Namespace) -> argparse.Namespace:
+    defaults = build_parser().parse_args(["distill", str(DEMO_DATA), "--target", DEMO_TARGET])
+    defaults.out, defaults.force, defaults.json, defaults.quiet = args.out, True, args.json, args.quiet
+    defaults.ignore = ["marketable"]
+    return defaults
+
+
+def _run(args: argparse.Namespace) -> int:
+    if args.command == "distill":
+        return _run_distill(args.data, args.target, args)
+    if args.command == "demo":
+        if not DEMO_DATA.is_file():
+            raise InputError(f"demo data {DEMO_DATA} not found: run `python demo_data/make_demo.py` first")
+        return _run_distill(str(DEMO_DATA), DEMO_TARGET, _demo_args(args))
+    if args.command == "score":
+        from .score import score_file
+        n = score_file(args.bundle, args.data, args.model, args.out, args.keep, quiet=args.quiet)
+        if args.out and not args.quiet:
+            print(f"wrote {n} predictions to {args.out}", file=sys.stderr)
+        return 0
+    if args.command == "verify":
+        from .verify import verify_bundle
+        checks = verify_bundle(args.bundle)
+        for c in checks:
+            print(c.line())
+        bad = [c for c in checks if not c.ok]
+        print(f"{len(checks) - len(bad)} of {len(checks)} checks passed" + ("" if not bad else ": the bundle does NOT reproduce its reference rows"))
+        return 1 if bad else 0
+    build_parser().print_help()
+    return 2
+
+
+def main(argv: list[str] | None = None) -> int:
+    argv = sys.argv[1:] if argv is None else argv
+    debug = "--debug" in argv
+    try:
+        args = build_parser().parse_args(argv)
+        return _run(args)
+    except InputError as exc:
+        if debug:
+            traceback.print_exc()
+        print(f"error: {exc}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("error: interrupted; nothing was written", file=sys.stderr)
+        return 2
+    except BrokenPipeError:
+        os._exit(0)
+
+
+if __name__ == "__main__":
+    sys.exit(main())

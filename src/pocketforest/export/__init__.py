@@ -1,0 +1,1 @@
+"""Printers and converters that turn fitted models into the bundle's portable files."""

@@ -1,0 +1,167 @@
+"""The three ONNX models, all taking the same raw named inputs with preprocessing inside.
+
+Forest and tree are converted by skl2onnx (float32, as the runtime requires for tree ensembles);
+the equation is assembled from its expression trees with ``onnx.helper`` and computed in double
+precision inside the graph.
+"""
+from __future__ import annotations
+
+import numpy as np
+import onnx
+from onnx import TensorProto, helper, numpy_helper
+from skl2onnx import convert_sklearn
+from skl2onnx.common.data_types import FloatTensorType, StringTensorType
+
+from ..equation import EquationFit
+from ..expr import Const, Is, Log, Node, Num, Pos, Prod, Square, Sub
+from ..intake import Feature
+
+OPSETS = {"": 17, "ai.onnx.ml": 3}
+
+
+def _initial_types(features: list[Feature]) -> list:
+    return [(f.onnx_input, FloatTensorType([None, 1]) if f.kind == "numeric" else StringTensorType([None, 1]))
+            for f in features]
+
+
+def convert_pipeline(pipeline, features: list[Feature], task: str, name: str, metadata: dict) -> onnx.ModelProto:
+    """skl2onnx conversion with the contract's output names (``prediction`` or ``label``/``probabilities``)."""
+    model = pipeline.steps[-1][1]
+    if task == "regression":
+        onx = convert_sklearn(pipeline, name=name, initial_types=_initial_types(features),
+                              final_types=[("prediction", FloatTensorType([None, 1]))], target_opset=OPSETS)
+    else:
+        onx = convert_sklearn(pipeline, name=name, initial_types=_initial_types(features),
+                              options={id(model): {"zipmap": False}}, target_opset=OPSETS)
+        _rename_outputs(onx, {o.name: n for o, n in zip(onx.graph.output, ("label", "probabilities"))})
+    _finish(onx, metadata)
+    return onx
+
+
+def _rename_outputs(model: onnx.ModelProto, mapping: dict[str, str]) -> None:
+    for node in model.graph.node:
+        node.output[:] = [mapping.get(o, o) for o in node.output]
+        node.input[:] = [mapping.get(i, i) for i in node.input]
+    for out in model.graph.output:
+        out.name = mapping.get(out.name, out.name)
+
+
+def _finish(model: onnx.ModelProto, metadata: dict) -> None:
+    model.producer_name = "pocketforest"
+    model.producer_version = str(metadata.get("tool_version", ""))
+    del model.metadata_props[:]
+    for key, value in metadata.items():
+        entry = model.metadata_props.add()
+        entry.key, entry.value = str(key), str(value)
+    onnx.checker.check_model(model, full_check=True)
+
+
+class _GraphBuilder:
+    """Collects nodes and constants; names are generated, never taken from user data."""
+
+    def __init__(self, features: list[Feature]):
+        self.nodes: list = []
+        self.inits: list = []
+        self.count = 0
+        self.inputs = {f.name: f for f in features}
+        self.cache: dict = {}
+
+    def name(self, stem: str) -> str:
+        self.count += 1
+        return f"{stem}_{self.count}"
+
+    def const(self, value, dtype=np.float64) -> str:
+        arr = np.asarray(value, dtype=dtype) if dtype is not object else np.asarray(value, dtype=object)
+        n = self.name("c")
+        self.inits.append(numpy_helper.from_array(arr, n))
+        return n
+
+    def op(self, op_type: str, inputs: list[str], **attrs) -> str:
+        out = self.name(op_type.lower())
+        self.nodes.append(helper.make_node(op_type, inputs, [out], **attrs))
+        return out
+
+    def level_codes(self, feature: str) -> tuple[str, list[str]]:
+        """Categories as integer codes (0 = a level never seen), via the ONNX-ML LabelEncoder;
+        plain Equal on strings needs a newer opset than many runtimes carry."""
+        key = ("codes", feature)
+        if key not in self.cache:
+            f = self.inputs[feature]
+            levels = [""] + [lv for lv in (f.categories or []) if lv != ""]
+            out = self.name("codes")
+            self.nodes.append(helper.make_node("LabelEncoder", [f.onnx_input], [out], domain="ai.onnx.ml",
+                                               keys_strings=levels, values_int64s=list(range(1, len(levels) + 1)),
+                                               default_int64=0))
+            self.cache[key] = (out, levels)
+        return self.cache[key]
+
+    def emit(self, node: Node) -> str:
+        if node in self.cache:
+            return self.cache[node]
+        out = self._emit(node)
+        self.cache[node] = out
+        return out
+
+    def _emit(self, node: Node) -> str:
+        if isinstance(node, Num):
+            x = self.op("Cast", [self.inputs[node.feature].onnx_input], to=TensorProto.DOUBLE)
+            return self.op("Where", [self.op("IsNaN", [x]), self.const([[node.fill]]), x])
+        if isinstance(node, Is):
+            codes, levels = self.level_codes(node.feature)
+            eq = self.op("Equal", [codes, self.const([[levels.index(node.level) + 1]], np.int64)])
+            return self.op("Cast", [eq], to=TensorProto.DOUBLE)
+        if isinstance(node, Const):
+            return self.const([[node.value]])
+        if isinstance(node, Sub):
+            return self.op("Sub", [self.emit(node.left), self.emit(node.right)])
+        if isinstance(node, Prod):
+            out = self.emit(node.items[0])
+            for item in node.items[1:]:
+                out = self.op("Mul", [out, self.emit(item)])
+            return out
+        if isinstance(node, Square):
+            a = self.emit(node.arg)
+            return self.op("Mul", [a, a])
+        if isinstance(node, Pos):
+            return self.op("Max", [self.emit(node.arg), self.const([[0.0]])])
+        if isinstance(node, Log):
+            return self.op("Log", [self.emit(node.arg)])
+        raise TypeError(f"unknown node {node!r}")
+
+
+def equation_model(eq: EquationFit, features: list[Feature], metadata: dict) -> onnx.ModelProto:
+    """The GLM as a graph: raw inputs → imputed terms → linear predictor → inverse link."""
+    g = _GraphBuilder(features)
+    cols = [g.emit(c.node) for c in eq.columns]
+    design = g.op("Concat", cols, axis=1) if len(cols) > 1 else cols[0]
+    coef = np.asarray(eq.coef, dtype=np.float64)
+    weights = coef[1:].reshape(len(cols), -1)
+    eta = g.op("Add", [g.op("MatMul", [design, g.const(weights)]), g.const(coef[0].reshape(1, -1))])
+    outputs = []
+    if eq.task == "regression":
+        mean = eta if eq.link == "identity" else g.op("Exp", [eta])
+        g.nodes.append(helper.make_node("Cast", [mean], ["prediction"], to=TensorProto.FLOAT))
+        outputs.append(helper.make_tensor_value_info("prediction", TensorProto.FLOAT, [None, 1]))
+    else:
+        if len(eq.classes) == 2:
+            p1 = g.op("Sigmoid", [eta])
+            probs = g.op("Concat", [g.op("Sub", [g.const([[1.0]]), p1]), p1], axis=1)
+        else:
+            zeros = g.op("Mul", [g.op("Slice", [eta, g.const([0], np.int64), g.const([1], np.int64),
+                                               g.const([1], np.int64)]), g.const([[0.0]])])
+            probs = g.op("Softmax", [g.op("Concat", [zeros, eta], axis=1)], axis=1)
+        idx = g.op("ArgMax", [probs], axis=1, keepdims=0)
+        classes = g.const(np.array(eq.classes, dtype=object), object)
+        g.nodes.append(helper.make_node("Gather", [classes, idx], ["label"], axis=0))
+        g.nodes.append(helper.make_node("Cast", [probs], ["probabilities"], to=TensorProto.FLOAT))
+        outputs += [helper.make_tensor_value_info("label", TensorProto.STRING, [None]),
+                    helper.make_tensor_value_info("probabilities", TensorProto.FLOAT, [None, len(eq.classes)])]
+    inputs = [helper.make_tensor_value_info(f.onnx_input, TensorProto.FLOAT if f.kind == "numeric"
+                                            else TensorProto.STRING, [None, 1]) for f in features]
+    graph = helper.make_graph(g.nodes, "equation", inputs, outputs, g.inits)
+    model = helper.make_model(graph, opset_imports=[helper.make_opsetid("", OPSETS[""]),
+                                                    helper.make_opsetid("ai.onnx.ml", OPSETS["ai.onnx.ml"])],
+                              producer_name="pocketforest")
+    model.ir_version = 8
+    _finish(model, metadata)
+    return model

@@ -1,0 +1,88 @@
+"""Scoring through onnxruntime from a bundle alone (no scikit-learn, no statsmodels).
+
+The manifest says which inputs each graph takes and how to type them; missing numbers go in as
+NaN and missing categories as the empty string, exactly as the contract states.
+"""
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import numpy as np
+import onnxruntime as ort
+import pandas as pd
+
+from .bundle_io import bundle_file, read_manifest
+from .errors import InputError
+
+MODELS = ("forest", "tree", "equation")
+
+
+def feeds(frame: pd.DataFrame, features: list[dict]) -> dict[str, np.ndarray]:
+    """ONNX inputs from a frame whose columns are named as the data's."""
+    out = {}
+    for f in features:
+        col = frame[f["name"]]
+        if f["kind"] == "numeric":
+            out[f["onnx_input"]] = pd.to_numeric(col, errors="coerce").to_numpy(dtype=np.float32).reshape(-1, 1)
+        else:
+            out[f["onnx_input"]] = col.fillna("").astype(str).to_numpy(dtype=object).reshape(-1, 1)
+    return out
+
+
+class Scorer:
+    """One ONNX model of a bundle, ready to predict on frames."""
+
+    def __init__(self, bundle: str | Path, model: str, manifest: dict | None = None, *, check: bool = True):
+        if model not in MODELS:
+            raise InputError(f"--model '{model}' is not one of {', '.join(MODELS)}")
+        self.manifest = manifest or read_manifest(bundle)
+        path = bundle_file(bundle, self.manifest, f"{model}.onnx", check=check)
+        opts = ort.SessionOptions()
+        opts.log_severity_level = 3
+        try:
+            self.session = ort.InferenceSession(str(path), sess_options=opts, providers=["CPUExecutionProvider"])
+        except Exception as exc:  # onnxruntime raises its own exception types
+            raise InputError(f"{path} could not be loaded by onnxruntime ({exc}); the bundle is damaged") from None
+        self.features = self.manifest["features"]
+        self.task = self.manifest["task"]
+        self.classes = self.manifest.get("classes")
+
+    def run(self, frame: pd.DataFrame) -> dict[str, np.ndarray]:
+        """Regression: {"prediction"}; classification: {"label", "probabilities"}."""
+        names = [o.name for o in self.session.get_outputs()]
+        result = self.session.run(None, feeds(frame, self.features))
+        out = dict(zip(names, result))
+        if self.task == "regression":
+            return {"prediction": np.asarray(out["prediction"], dtype=np.float64).reshape(-1)}
+        return {"label": np.asarray(out["label"]).astype(str).reshape(-1),
+                "probabilities": np.asarray(out["probabilities"], dtype=np.float64)}
+
+    def columns(self, frame: pd.DataFrame) -> pd.DataFrame:
+        """The prediction columns `score` writes."""
+        res = self.run(frame)
+        if self.task == "regression":
+            return pd.DataFrame({"prediction": res["prediction"]}, index=frame.index)
+        cols = {"label": res["label"]}
+        for k, c in enumerate(self.classes):
+            cols[f"prob_{c}"] = res["probabilities"][:, k]
+        return pd.DataFrame(cols, index=frame.index)
+
+
+def envelope_count(frame: pd.DataFrame, features: list[dict]) -> np.ndarray:
+    """Per row, how many inputs lie outside the training envelope (range, or an unseen category)."""
+    count = np.zeros(len(frame), dtype=np.int64)
+    for f in features:
+        col = frame[f["name"]]
+        if f["kind"] == "numeric":
+            x = pd.to_numeric(col, errors="coerce").to_numpy(dtype=np.float64)
+            with np.errstate(invalid="ignore"):
+                count += ((x < f["min"]) | (x > f["max"])).astype(np.int64)
+        else:
+            known = set(f.get("categories") or []) | {""}
+            count += (~col.fillna("").astype(str).isin(known)).to_numpy().astype(np.int64)
+    return count
+
+
+def load_json(path: Path) -> dict:
+    return json.loads(Path(path).read_text(encoding="utf-8"))

@@ -1,0 +1,105 @@
+"""The shallow surrogate tree, distilled from the forest (Craven & Shavlik 1996; Buciluă et al. 2006).
+
+Regression: a tree fitted to the forest's predictions. Classification: a classification tree
+fitted to the forest's class probabilities as soft labels (each row enters once per class,
+weighted by the forest's probability), so its leaves carry averaged forest probabilities and it
+converts to ONNX with the same label/probability outputs as the forest.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+from sklearn.metrics import cohen_kappa_score, r2_score
+from sklearn.pipeline import Pipeline
+from sklearn.tree import DecisionTreeClassifier, DecisionTreeRegressor
+
+from .forest import ForestFit
+from .thresholds import snap_tree_thresholds
+
+DEPTHS = range(1, 9)
+
+
+@dataclass
+class TreeFit:
+    pipeline: Pipeline
+    depth: int
+    leaves: int
+    fidelity_by_depth: list[dict]
+    chosen_by: str
+
+    @property
+    def model(self):
+        return self.pipeline.named_steps["tree"]
+
+
+def _fit_tree(Xt: np.ndarray, target: np.ndarray, task: str, depth: int, seed: int, min_leaf: int):
+    if task == "regression":
+        tree = DecisionTreeRegressor(max_depth=depth, min_samples_leaf=min_leaf, random_state=seed)
+        tree.fit(Xt, target)
+    else:
+        n, k = target.shape
+        X_rep = np.repeat(Xt, k, axis=0)
+        y_rep = np.tile(np.arange(k), n)
+        w = target.reshape(-1)
+        keep = w > 0
+        tree = DecisionTreeClassifier(max_depth=depth, min_samples_leaf=min_leaf, random_state=seed)
+        tree.fit(X_rep[keep], y_rep[keep], sample_weight=w[keep])
+        if len(tree.classes_) < k:  # a class the forest never predicts: keep the output width
+            tree.fit(np.vstack([X_rep[keep], Xt[:1].repeat(k, 0)]),
+                     np.concatenate([y_rep[keep], np.arange(k)]),
+                     sample_weight=np.concatenate([w[keep], np.full(k, 1e-12)]))
+    snap_tree_thresholds(tree)
+    return tree
+
+
+def fidelity(forest_pred: np.ndarray, tree_pred: np.ndarray, task: str) -> dict[str, float]:
+    """Regression: R² of tree against forest. Classification: label agreement and Cohen's kappa."""
+    if task == "regression":
+        return {"r2": float(r2_score(forest_pred, tree_pred))}
+    a, b = np.argmax(forest_pred, axis=1), np.argmax(tree_pred, axis=1)
+    kappa = cohen_kappa_score(a, b) if len(np.unique(np.concatenate([a, b]))) > 1 else 1.0
+    return {"agreement": float(np.mean(a == b)), "kappa": float(kappa)}
+
+
+def _forest_output(forest: ForestFit, Xt: np.ndarray) -> np.ndarray:
+    model = forest.model
+    return model.predict(Xt) if forest.task == "regression" else model.predict_proba(Xt)
+
+
+def distill_tree(forest: ForestFit, X_fit: pd.DataFrame, X_choose: pd.DataFrame, X_test: pd.DataFrame, *,
+                 depth: int | None = None, target_fidelity: float = 0.9, seed: int = 0,
+                 min_leaf: int = 5) -> TreeFit:
+    """Fit depths 1–8 on ``X_fit`` (discovery rows) labelled by the forest.
+
+    The default depth is the smallest whose fidelity on ``X_choose`` (confirmation rows: the
+    forest labels them, no outcome is used) reaches ``target_fidelity``; the curve reported is
+    on the test rows.
+    """
+    prep = forest.pipeline.named_steps["prep"]
+    Xf, Xc, Xt = (np.asarray(prep.transform(x), dtype=np.float32) for x in (X_fit, X_choose, X_test))
+    yf, yc, yt = (_forest_output(forest, x) for x in (Xf, Xc, Xt))
+    key = "r2" if forest.task == "regression" else "agreement"
+    trees, curve, choose = {}, [], {}
+    for d in DEPTHS:
+        tree = _fit_tree(Xf, yf, forest.task, d, seed, min_leaf)
+        trees[d] = tree
+        pc = tree.predict(Xc) if forest.task == "regression" else tree.predict_proba(Xc)
+        pt = tree.predict(Xt) if forest.task == "regression" else tree.predict_proba(Xt)
+        choose[d] = fidelity(yc, pc, forest.task)[key]
+        curve.append({"depth": d, **fidelity(yt, pt, forest.task), "confirmation_" + key: choose[d]})
+    if depth is None:
+        ok = [d for d in DEPTHS if choose[d] >= target_fidelity]
+        chosen = ok[0] if ok else max(DEPTHS)
+        how = f"smallest depth with confirmation-row fidelity {key} >= {target_fidelity}"
+        if not ok:
+            how = f"no depth up to {max(DEPTHS)} reached {key} >= {target_fidelity}; deepest kept"
+    else:
+        chosen = depth
+        how = "set by --tree-depth"
+        if depth not in trees:
+            trees[depth] = _fit_tree(Xf, yf, forest.task, depth, seed, min_leaf)
+    tree = trees[chosen]
+    pipeline = Pipeline([("prep", prep), ("tree", tree)])
+    return TreeFit(pipeline, int(tree.get_depth()), int(tree.get_n_leaves()), curve, how)
