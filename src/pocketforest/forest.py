@@ -63,6 +63,9 @@ def fit_forest(X: pd.DataFrame, y: np.ndarray, preprocessor, columns: list[Desig
         print(file=sys.stderr)
     for est in forest.estimators_:
         snap_tree_thresholds(est)
+    # Parallel prediction adds tree outputs in whatever order threads finish, which changes the
+    # last digit from run to run; predicting on one thread keeps results reproducible.
+    forest.set_params(n_jobs=1)
     pipeline = Pipeline([("prep", preprocessor), ("forest", forest)])
     if task == "regression":
         pred = forest.oob_prediction_

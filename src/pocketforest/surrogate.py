@@ -34,21 +34,22 @@ class TreeFit:
         return self.pipeline.named_steps["tree"]
 
 
-def _fit_tree(Xt: np.ndarray, target: np.ndarray, task: str, depth: int, seed: int, min_leaf: int):
+def _fit_tree(Xt: np.ndarray, target: np.ndarray, task: str, depth: int, seed: int, min_leaf: int,
+              labels: np.ndarray | None = None):
     if task == "regression":
         tree = DecisionTreeRegressor(max_depth=depth, min_samples_leaf=min_leaf, random_state=seed)
         tree.fit(Xt, target)
     else:
         n, k = target.shape
         X_rep = np.repeat(Xt, k, axis=0)
-        y_rep = np.tile(np.arange(k), n)
+        y_rep = np.tile(labels, n)
         w = target.reshape(-1)
         keep = w > 0
         tree = DecisionTreeClassifier(max_depth=depth, min_samples_leaf=min_leaf, random_state=seed)
         tree.fit(X_rep[keep], y_rep[keep], sample_weight=w[keep])
         if len(tree.classes_) < k:  # a class the forest never predicts: keep the output width
             tree.fit(np.vstack([X_rep[keep], Xt[:1].repeat(k, 0)]),
-                     np.concatenate([y_rep[keep], np.arange(k)]),
+                     np.concatenate([y_rep[keep], labels]),
                      sample_weight=np.concatenate([w[keep], np.full(k, 1e-12)]))
     snap_tree_thresholds(tree)
     return tree
@@ -83,7 +84,7 @@ def distill_tree(forest: ForestFit, X_fit: pd.DataFrame, X_choose: pd.DataFrame,
     key = "r2" if forest.task == "regression" else "agreement"
     trees, curve, choose = {}, [], {}
     for d in DEPTHS:
-        tree = _fit_tree(Xf, yf, forest.task, d, seed, min_leaf)
+        tree = _fit_tree(Xf, yf, forest.task, d, seed, min_leaf, getattr(forest.model, "classes_", None))
         trees[d] = tree
         pc = tree.predict(Xc) if forest.task == "regression" else tree.predict_proba(Xc)
         pt = tree.predict(Xt) if forest.task == "regression" else tree.predict_proba(Xt)
@@ -99,7 +100,7 @@ def distill_tree(forest: ForestFit, X_fit: pd.DataFrame, X_choose: pd.DataFrame,
         chosen = depth
         how = "set by --tree-depth"
         if depth not in trees:
-            trees[depth] = _fit_tree(Xf, yf, forest.task, depth, seed, min_leaf)
+            trees[depth] = _fit_tree(Xf, yf, forest.task, depth, seed, min_leaf, getattr(forest.model, "classes_", None))
     tree = trees[chosen]
     pipeline = Pipeline([("prep", prep), ("tree", tree)])
     return TreeFit(pipeline, int(tree.get_depth()), int(tree.get_n_leaves()), curve, how)
