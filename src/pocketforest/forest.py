@@ -6,6 +6,7 @@ convert the whole thing, raw inputs included.
 from __future__ import annotations
 
 import sys
+import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -56,7 +57,9 @@ def fit_forest(X: pd.DataFrame, y: np.ndarray, preprocessor, columns: list[Desig
     while grown < trees:
         grown = min(trees, grown + chunk)
         forest.set_params(n_estimators=grown, oob_score=(grown == trees))
-        forest.fit(Xt, y)
+        with warnings.catch_warnings():
+            warnings.filterwarnings("ignore", message="Some inputs do not have OOB scores")
+            forest.fit(Xt, y)
         if not quiet:
             print(f"\rgrowing forest: {grown}/{trees} trees", end="", file=sys.stderr, flush=True)
     if not quiet:
@@ -67,13 +70,17 @@ def fit_forest(X: pd.DataFrame, y: np.ndarray, preprocessor, columns: list[Desig
     # last digit from run to run; predicting on one thread keeps results reproducible.
     forest.set_params(n_jobs=1)
     pipeline = Pipeline([("prep", preprocessor), ("forest", forest)])
+    # With few trees some rows are in every bootstrap and have no OOB prediction: leave them out.
     if task == "regression":
         pred = forest.oob_prediction_
-        oob = {"mse": float(mean_squared_error(y, pred)), "r2": float(r2_score(y, pred))}
+        ok = np.isfinite(pred)
+        oob = {"mse": float(mean_squared_error(y[ok], pred[ok])), "r2": float(r2_score(y[ok], pred[ok]))}
     else:
         pred = forest.oob_decision_function_
-        labels = forest.classes_[np.argmax(pred, axis=1)]
-        oob = {"error_rate": float(1.0 - accuracy_score(y, labels))}
+        ok = np.all(np.isfinite(pred), axis=1)
+        labels = forest.classes_[np.argmax(pred[ok], axis=1)]
+        oob = {"error_rate": float(1.0 - accuracy_score(y[ok], labels))}
+    oob["rows_with_oob"] = int(ok.sum())
     settings = {"trees": trees, "min_samples_leaf": min_samples_leaf,
                 "max_features": max_features, "bootstrap": True}
     return ForestFit(pipeline, columns, task, oob, np.asarray(pred), settings)

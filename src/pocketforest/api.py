@@ -1,0 +1,69 @@
+"""Three-line use from a notebook: fit on a DataFrame, look at the result, write or load a bundle.
+
+    import pocketforest as pf
+    result = pf.fit(df, target="outcome", random_state=1)
+    result.write("exports/outcome");  pf.load_bundle("exports/outcome").predict(new_rows)
+"""
+from __future__ import annotations
+
+import os
+from typing import Sequence
+
+import numpy as np
+import pandas as pd
+
+
+def fit(data: pd.DataFrame | str | os.PathLike, target: str, *, task: str = "auto",
+        categorical: Sequence[str] = (), ignore: Sequence[str] = (), random_state: int = 0,
+        n_trees: int = 500, tree_depth: int | None = None, split: tuple[float, float, float] = (0.5, 0.25, 0.25),
+        quiet: bool = True):
+    """Run the whole job on a DataFrame (or a data file) and return the :class:`Distillation`."""
+    from .intake import load, prepare
+    from .pipeline import Settings, distill
+    if isinstance(data, pd.DataFrame):
+        table = prepare(data, target, task=task, categorical=categorical, ignore=ignore, source="<DataFrame>")
+    else:
+        table = load(data, target, task=task, categorical=categorical, ignore=ignore)
+    settings = Settings(trees=n_trees, tree_depth=tree_depth, seed=random_state, split=split, quiet=quiet)
+    return distill(table, settings)
+
+
+class Bundle:
+    """A written bundle, scored through onnxruntime only (no fitting libraries needed)."""
+
+    def __init__(self, path: str | os.PathLike):
+        from .bundle_io import read_manifest
+        self.path = str(path)
+        self.manifest = read_manifest(path)
+        self._scorers: dict = {}
+
+    @property
+    def task(self) -> str:
+        return self.manifest["task"]
+
+    @property
+    def classes(self) -> list[str] | None:
+        return self.manifest.get("classes")
+
+    def predict(self, data: pd.DataFrame, model: str = "forest") -> np.ndarray:
+        """Regression: values. Classification: labels (see :meth:`predict_proba`)."""
+        out = self._run(data, model)
+        return out["prediction"] if self.task == "regression" else out["label"]
+
+    def predict_proba(self, data: pd.DataFrame, model: str = "forest") -> np.ndarray:
+        if self.task != "classification":
+            raise ValueError("predict_proba is for classification bundles")
+        return self._run(data, model)["probabilities"]
+
+    def _run(self, data: pd.DataFrame, model: str) -> dict:
+        from .runtime import Scorer
+        from .score import features_of
+        from .intake import coerce_for_scoring
+        if model not in self._scorers:
+            self._scorers[model] = Scorer(self.path, model, self.manifest)
+        typed = coerce_for_scoring(data, features_of(self.manifest), source="<DataFrame>")
+        return self._scorers[model].run(typed)
+
+
+def load_bundle(path: str | os.PathLike) -> Bundle:
+    return Bundle(path)
