@@ -121,7 +121,7 @@ def distill(table: Table, settings: Settings | None = None) -> Distillation:
                         min_leaf=s.min_samples_leaf)
 
     result = Distillation(table, s, splits, forest, importance, discovery, equation, tree, fills,
-                          {}, {}, {}, list(table.notes) + list(discovery.notes) + list(equation.notes))
+                          {}, {}, {}, list(table.notes) + list(discovery.notes) + list(equation.warnings))
     _judge(result, test, y_t)
     return result
 
