@@ -100,7 +100,7 @@ def _manifest(r, created: str, nodes) -> dict:
                      "note": r.equation.note,
                      "dropped_terms": [t.to_dict() for t in r.equation.dropped_terms]},
         "tree": {"depth": r.tree.depth, "leaves": r.tree.leaves, "chosen_by": r.tree.chosen_by,
-                 "fidelity_by_depth": r.tree.fidelity_by_depth},
+                 "fidelity_by_depth": r.tree.fidelity_by_depth, "synthetic_rows": r.tree.synthetic_rows},
         "evaluation": r.evaluation,
         "fidelity": r.fidelity,
         "loss": r.loss,

@@ -37,6 +37,8 @@ class Settings:
     robust: bool = False
     bootstrap: int = 1000
     quiet: bool = False
+    synthetic_rows: int = 0          # extra forest-labelled rows for the surrogate tree (Breiman & Shang 1996)
+    cap_terms: bool = True           # about ten confirmation rows per coefficient (Peduzzi et al. 1996)
 
 
 @dataclass
@@ -113,12 +115,13 @@ def distill(table: Table, settings: Settings | None = None) -> Distillation:
     _say(s, "fitting the equation on the confirmation rows")
     baseline = main_effects([f for f in table.features if f.name in discovery.main_variables])
     equation = fit_equation(discovery.terms, conf, y_c, task=task, target=target, fills=fills, kinds=kinds,
-                            classes=forest.classes, family=s.family, robust=s.robust, baseline=baseline)
+                            classes=forest.classes, family=s.family, robust=s.robust, baseline=baseline,
+                            cap=s.cap_terms)
 
     _say(s, "distilling the surrogate tree")
     tree = distill_tree(forest, Xd, model_frame(conf, table.features), model_frame(test, table.features),
                         depth=s.tree_depth, target_fidelity=s.target_fidelity, seed=s.seed,
-                        min_leaf=s.min_samples_leaf)
+                        min_leaf=s.min_samples_leaf, n_synthetic=s.synthetic_rows)
 
     result = Distillation(table, s, splits, forest, importance, discovery, equation, tree, fills,
                           {}, {}, {}, list(table.notes) + list(discovery.notes) + list(equation.warnings))
