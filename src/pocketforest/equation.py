@@ -212,10 +212,10 @@ def fit_equation(terms: list[Term], data: pd.DataFrame, y: np.ndarray, *, task: 
         need = len(design_columns(terms, fills, kinds))
         if need > budget:
             terms, dropped = cap_terms(terms, budget, fills, kinds)
-            msg = (f"the {fit_on} rows ({basis}) support about {budget} coefficient(s) per equation at "
+            msg = (f"The {fit_on} rows ({basis}) support about {budget} coefficient(s) per equation at "
                    f"{ROWS_PER_COEFFICIENT} rows each (Peduzzi et al. 1996, a rule of thumb), the suggested "
-                   f"terms need {need}: dropped the weakest, keeping hierarchy: "
-                   + ", ".join(_describe(t) for t in dropped))
+                   f"terms need {need}: dropped the {len(dropped)} weakest, keeping hierarchy: "
+                   + ", ".join(_describe(t) for t in dropped) + ".")
             notes.append(msg)
             warn.append(msg)
     cols = design_columns(terms, fills, kinds)
@@ -230,13 +230,13 @@ def fit_equation(terms: list[Term], data: pd.DataFrame, y: np.ndarray, *, task: 
         method = "Firth penalised likelihood"
         coef, bse, pvalues, ci = fit.params, fit.bse, fit.pvalues, fit.ci
         summary = ""
-        msg = (f"the classes of {target!r} are separated on the {fit_on} rows (some combination of the terms "
+        msg = (f"The classes of {target!r} are separated on the {fit_on} rows (some combination of the terms "
                "predicts them perfectly), so ordinary estimates would be infinite: fitted by Firth's penalised "
-               "likelihood (Firth 1993) with Wald intervals; read large coefficients as 'very strong', not as sizes")
+               "likelihood (Firth 1993) with Wald intervals; read large coefficients as 'very strong', not as sizes.")
         notes.append(msg)
         warn.append(msg)
         if robust:
-            notes.append("--robust does not apply to the penalised fit; model-based standard errors shown")
+            notes.append("--robust does not apply to the penalised fit; model-based standard errors are shown.")
     else:
         result = _fit(response + " ~ " + form.split(" ~ ", 1)[1], frame, family, robust)
         order = _match_columns(np.asarray(result.model.exog), list(result.model.exog_names), frame, cols)
@@ -248,7 +248,8 @@ def fit_equation(terms: list[Term], data: pd.DataFrame, y: np.ndarray, *, task: 
         coef, bse, pvalues, ci = params[order], bse_all[order], p_all[order], ci_all[order]
         summary = str(result.summary())
         if robust:
-            notes.append("standard errors are robust (sandwich: HC3 for the GLM, HC0 for the multinomial model)")
+            notes.append("Standard errors are robust (sandwich: HC3 for the GLM, HC0 for the multinomial model); "
+                         "the block test uses the model-based likelihood.")
     if family == "multinomial":
         table = [_row(labels[j], coef[j, k], bse[j, k], ci[j, k], pvalues[j, k], classes[k + 1])
                  for k in range(coef.shape[1]) for j in range(len(labels))]
@@ -263,6 +264,8 @@ def fit_equation(terms: list[Term], data: pd.DataFrame, y: np.ndarray, *, task: 
         if len(base_cols) < len(cols):
             eq.block_test = block_test(X, X[:, [0] + base_cols], frame[response].to_numpy(), family,
                                        penalised=separated, n_classes=len(classes) if classes else None)
+    if baseline is not None and eq.block_test is None:
+        notes.append("No terms beyond the main effects were suggested (or kept), so there is no block test.")
     if fit_on == "confirmation":
         what = "p-values and intervals" + (" and the block test" if eq.block_test else "")
         notes.insert(0, f"The terms were chosen on the discovery rows; the {what} come from the {eq.n} "
