@@ -19,7 +19,8 @@ from sklearn.metrics import (accuracy_score, brier_score_loss, log_loss, mean_ab
 LOG_LOSS_EPS = np.finfo(float).eps   # the clipping scikit-learn's log_loss applies (float64)
 
 
-def metrics(y: np.ndarray, pred: np.ndarray, task: str, classes: list[str] | None = None) -> dict[str, float]:
+def metrics(y: np.ndarray, pred: np.ndarray, task: str, classes: list[str] | None = None, *,
+            auc: bool = True) -> dict[str, float]:
     """Regression: r2, rmse, mae. Classification (``pred`` = probabilities): accuracy, log_loss,
     brier (mean over rows of the summed squared error over classes for several classes), auc
     (macro one-vs-rest for several classes)."""
@@ -33,13 +34,14 @@ def metrics(y: np.ndarray, pred: np.ndarray, task: str, classes: list[str] | Non
            "log_loss": float(log_loss(codes, proba, labels=list(range(k))))}
     if k == 2:
         out["brier"] = float(brier_score_loss(codes, proba[:, 1]))
-        out["auc"] = float(roc_auc_score(codes, proba[:, 1])) if len(np.unique(codes)) == 2 else float("nan")
+        if auc:
+            out["auc"] = float(roc_auc_score(codes, proba[:, 1])) if len(np.unique(codes)) == 2 else float("nan")
     else:
-        onehot = np.eye(k)[codes]
-        out["brier"] = float(np.mean(np.sum((proba - onehot) ** 2, axis=1)))
+        out["brier"] = float(brier_score_loss(codes, proba, labels=list(range(k))))
         present = len(np.unique(codes)) == k
-        out["auc"] = float(roc_auc_score(codes, proba, multi_class="ovr", average="macro",
-                                         labels=list(range(k)))) if present else float("nan")
+        if auc:
+            out["auc"] = float(roc_auc_score(codes, proba, multi_class="ovr", average="macro",
+                                             labels=list(range(k)))) if present else float("nan")
     return out
 
 
@@ -124,7 +126,7 @@ def loss_with_interval(y: np.ndarray, forest_pred: np.ndarray, other_pred: np.nd
             diffs[m].append(_signed(m, fs[m], os_[m]))
     alpha = (1.0 - level) / 2.0
     # point estimates from the reference library; the bootstrap sums reproduce them to rounding
-    ref_f, ref_o = metrics(y, forest_pred, task, classes), metrics(y, other_pred, task, classes)
+    ref_f, ref_o = (metrics(y, p, task, classes, auc=False) for p in (forest_pred, other_pred))
     out_all = {}
     for m in f0:
         d = np.concatenate(diffs[m])
