@@ -26,8 +26,8 @@ def test_split_testing_keeps_the_level_for_a_binary_outcome():
     assert r["naive_rate"] > r["split_rate"] + 0.1
 
 
-@pytest.mark.parametrize("task", ["regression", "classification"])
-def test_loss_interval_covers_the_true_difference(task):
-    r = loss_coverage(120, task=task, n_test=300, resamples=400, truth_rows=200_000, seed=13)
+@pytest.mark.parametrize("task,k", [("regression", 2), ("classification", 2), ("classification", 3)])
+def test_loss_interval_covers_the_true_difference(task, k):
+    r = loss_coverage(120, task=task, n_classes=k, n_test=300, resamples=400, truth_rows=200_000, seed=13)
     assert r["true_difference"] > 0.05                 # the crude model is really worse
     assert 0.88 <= r["coverage"] <= 0.99

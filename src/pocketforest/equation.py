@@ -111,7 +111,7 @@ def check_family(family: str | None, task: str, classes: list[str] | None, y: np
         bad = ~np.isfinite(v) | (v < 0) | (v != np.round(v))
         if bad.any():
             raise InputError(f"--family poisson needs counts, but {target!r} has the value "
-                             f"{v[np.argmax(bad)]!r}: give a non-negative whole-number outcome or drop --family poisson")
+                             f"{float(v[np.argmax(bad)])!r}: give a non-negative whole-number outcome or drop --family poisson")
     return family
 
 

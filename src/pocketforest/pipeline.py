@@ -15,7 +15,7 @@ import pandas as pd
 from . import __version__
 from .design import fill_values, make_preprocessor, model_frame
 from .discovery import Discovery, discover
-from .equation import EquationFit, fit_equation
+from .equation import EquationFit, check_family, fit_equation
 from .evaluate import loss_with_interval, metrics
 from .forest import ForestFit, fit_forest
 from .importance import Importance, oob_permutation_importance
@@ -88,6 +88,7 @@ def distill(table: Table, settings: Settings | None = None) -> Distillation:
     s = settings or Settings()
     data, target, task = table.data, table.target, table.task
     y_all = data[target].to_numpy()
+    check_family(s.family, task, table.classes, y_all, target)   # fail before any fitting
     strata = y_all if task == "classification" else None
     splits = make_splits(len(data), s.split, s.seed, strata)
     disc, conf, test = (data.iloc[i].reset_index(drop=True) for i in (splits.discovery, splits.confirmation, splits.test))

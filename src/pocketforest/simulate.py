@@ -115,7 +115,7 @@ def null_rejection(n_datasets: int = 1000, *, n_rows: int = 400, n_features: int
             "n_rows": n_rows, "candidates": n_cand, "selected": k}
 
 
-def _generator(task: str):
+def _generator(task: str, n_classes: int = 2):
     """A synthetic truth with a bend and an interaction, and two fixed models of it: a close one
     (the role of the forest) and a cruder one (the role of a surrogate)."""
     def draw(rng: np.random.Generator, n: int):
@@ -125,6 +125,17 @@ def _generator(task: str):
         crude = 0.67 + x[:, 1] + 0.8 * x[:, 1] * x[:, 2]
         if task == "regression":
             return f + rng.normal(0, 0.5, n), close, crude
+        if n_classes > 2:   # ordered classes: scores for low / mid / high (and more) along f
+            cuts = np.linspace(-0.3, 1.8, n_classes)
+
+            def probs(score):
+                z = -2.5 * (score[:, None] - cuts[None, :]) ** 2
+                e = np.exp(z - z.max(axis=1, keepdims=True))
+                return e / e.sum(axis=1, keepdims=True)
+            p = probs(f)
+            codes = (rng.uniform(size=n)[:, None] > np.cumsum(p, axis=1)).sum(axis=1)
+            names = np.array([f"c{k}" for k in range(n_classes)], dtype=object)
+            return names[np.minimum(codes, n_classes - 1)], probs(close), probs(crude)
         c = 0.67
         p = 1 / (1 + np.exp(-2.5 * (f - c)))
         y = np.where(rng.uniform(size=n) < p, "yes", "no").astype(object)
@@ -134,8 +145,8 @@ def _generator(task: str):
     return draw
 
 
-def loss_coverage(n_sims: int = 500, *, task: str = "regression", n_test: int = 400, resamples: int = 1000,
-                  level: float = 0.95, truth_rows: int = 1_000_000, seed: int = 0) -> dict:
+def loss_coverage(n_sims: int = 500, *, task: str = "regression", n_classes: int = 2, n_test: int = 400,
+                  resamples: int = 1000, level: float = 0.95, truth_rows: int = 1_000_000, seed: int = 0) -> dict:
     """Share of simulated test sets whose loss interval covers the true loss.
 
     The two models are fixed functions, so the true loss (forest metric minus surrogate metric,
@@ -143,8 +154,11 @@ def loss_coverage(n_sims: int = 500, *, task: str = "regression", n_test: int = 
     Each simulation draws ``n_test`` test rows, runs :func:`loss_with_interval` with its own
     seed and checks whether the interval contains the truth.
     """
-    classes = None if task == "regression" else ["no", "yes"]
-    draw = _generator(task)
+    if task == "regression":
+        classes = None
+    else:
+        classes = ["no", "yes"] if n_classes == 2 else [f"c{k}" for k in range(n_classes)]
+    draw = _generator(task, n_classes)
     rng = np.random.default_rng(seed)
     y, a, b = draw(rng, truth_rows)
     truth = loss_with_interval(y, a, b, task, classes, resamples=1)["value"]
@@ -156,7 +170,8 @@ def loss_coverage(n_sims: int = 500, *, task: str = "regression", n_test: int = 
         below += truth < r["ci_low"]
         widths.append(r["ci_high"] - r["ci_low"])
     cov = covered / n_sims
-    return {"coverage": cov, "level": level, "n_sims": n_sims, "task": task, "n_test": n_test,
+    return {"coverage": cov, "level": level, "n_sims": n_sims, "task": task,
+            "n_classes": None if classes is None else len(classes), "n_test": n_test,
             "resamples": resamples, "true_difference": float(truth), "mean_width": float(np.mean(widths)),
             "truth_below_interval": below / n_sims,
             "mc_se": float(np.sqrt(level * (1 - level) / n_sims))}
