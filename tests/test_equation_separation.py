@@ -93,3 +93,22 @@ def test_perfectly_separated_data_give_finite_coefficients_and_a_warning(k):
     assert eq.block_test["test"] == "penalised likelihood ratio" and eq.block_test["df"] == k - 1
     proba = eq.predict(df)
     assert np.mean(np.array(classes)[proba.argmax(1)] == y) > 0.95
+
+
+@pytest.mark.parametrize("k", [2, 3])
+def test_large_data_path_finds_separation_after_the_ordinary_fit_runs_away(k, monkeypatch):
+    """Above the row limit the linear programme runs only when the ordinary fit diverges."""
+    import pocketforest.equation as equation
+    monkeypatch.setattr(equation, "LP_MAX_ROWS", 0)
+    rng = np.random.default_rng(5)
+    df = pd.DataFrame({"x": rng.normal(size=90), "z": rng.normal(size=90)})
+    classes = [f"k{i}" for i in range(k)]
+    y = np.array(classes, dtype=object)[np.searchsorted(np.quantile(df.x, np.linspace(0, 1, k + 1)[1:-1]), df.x)]
+    eq = fit_equation([Term("linear", ["x"]), Term("linear", ["z"])], df, y, task="classification", target="y",
+                      fills={"x": 0.0, "z": 0.0}, kinds={"x": "numeric", "z": "numeric"}, classes=classes)
+    assert eq.method == "Firth penalised likelihood" and np.all(np.isfinite(eq.coef))
+    ok = pd.DataFrame({"x": rng.normal(size=300), "z": rng.normal(size=300)})
+    y_ok = np.array(classes, dtype=object)[rng.integers(0, k, 300)]
+    eq = fit_equation([Term("linear", ["x"])], ok, y_ok, task="classification", target="y",
+                      fills={"x": 0.0, "z": 0.0}, kinds={"x": "numeric", "z": "numeric"}, classes=classes)
+    assert eq.method == "maximum likelihood"

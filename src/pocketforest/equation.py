@@ -30,6 +30,7 @@ from .terms import Column, Term, design_columns, formula, resolve_levels, term_c
 FAMILIES = ("gaussian", "binomial", "multinomial", "poisson")
 LINKS = {"gaussian": "identity", "binomial": "logit", "multinomial": "logit", "poisson": "log"}
 ROWS_PER_COEFFICIENT = 10   # Peduzzi et al. (1996): events per variable, a rule of thumb
+LP_MAX_ROWS = 20_000        # separation checked up front below this many rows x (K - 1)
 
 
 @dataclass
@@ -224,7 +225,15 @@ def fit_equation(terms: list[Term], data: pd.DataFrame, y: np.ndarray, *, task: 
     labels = ["Intercept"] + [c.label for c in cols]
     method = "maximum likelihood"
     codes = frame[response].to_numpy().astype(int) if task == "classification" else None
-    separated = family in ("binomial", "multinomial") and is_separated(X, codes, len(classes))
+    logit = family in ("binomial", "multinomial")
+    result = None
+    # The separation check is a linear programme over rows x (K - 1) constraints: run it up front
+    # on small confirmation sets (where separation happens), else only when the ordinary fit
+    # looks like it ran off to infinity.
+    separated = logit and len(X) * (len(classes) - 1) <= LP_MAX_ROWS and is_separated(X, codes, len(classes))
+    if logit and not separated:
+        result = _fit(response + " ~ " + form.split(" ~ ", 1)[1], frame, family, robust)
+        separated = _runaway(result, X) and is_separated(X, codes, len(classes))
     if separated:
         fit = firth_fit(X, codes, len(classes))
         method = "Firth penalised likelihood"
@@ -238,7 +247,8 @@ def fit_equation(terms: list[Term], data: pd.DataFrame, y: np.ndarray, *, task: 
         if robust:
             notes.append("--robust does not apply to the penalised fit; model-based standard errors are shown.")
     else:
-        result = _fit(response + " ~ " + form.split(" ~ ", 1)[1], frame, family, robust)
+        if result is None:
+            result = _fit(response + " ~ " + form.split(" ~ ", 1)[1], frame, family, robust)
         order = _match_columns(np.asarray(result.model.exog), list(result.model.exog_names), frame, cols)
         params, bse_all, p_all = (np.asarray(a) for a in (result.params, result.bse, result.pvalues))
         ci_all = np.asarray(result.conf_int(alpha=0.05))
@@ -273,6 +283,17 @@ def fit_equation(terms: list[Term], data: pd.DataFrame, y: np.ndarray, *, task: 
                         "meaning (data splitting, Cox 1975). Tested on the rows that chose the terms they would "
                         "be too small (Berk et al. 2013).")
     return eq
+
+
+def _runaway(result, X: np.ndarray) -> bool:
+    """Signs that a logit fit diverged: no convergence, non-finite errors, or a coefficient whose
+    effect across one standard deviation of its column exceeds 25 on the log-odds scale."""
+    retvals = getattr(result, "mle_retvals", None) or {}
+    converged = retvals.get("converged", getattr(result, "converged", True))
+    params = np.asarray(result.params, dtype=float).reshape(X.shape[1], -1)
+    bse = np.asarray(result.bse, dtype=float)
+    spread = np.r_[0.0, X[:, 1:].std(axis=0)] if X.shape[1] > 1 else np.zeros(1)
+    return (not converged) or not np.all(np.isfinite(bse)) or bool(np.max(np.abs(params) * spread[:, None]) > 25)
 
 
 def _describe(t: Term) -> str:
