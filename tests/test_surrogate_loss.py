@@ -45,16 +45,29 @@ def test_classification_interval_equals_the_plain_loop_with_scikit_learn_metrics
     a[np.arange(200), codes] += 0.6
     a /= a.sum(1, keepdims=True)
     b = rng.dirichlet(np.ones(k), 200)
-    got = loss_with_interval(y, a, b, "classification", classes, resamples=250, seed=4)
+    got = loss_with_interval(y, a, b, "classification", classes, resamples=120, seed=4)
     acc = lambda t, p: skm.accuracy_score(t, p.argmax(1))  # noqa: E731
-    lo, hi = _loop_reference(codes, a, b, acc, 250, 4)
+    lo, hi = _loop_reference(codes, a, b, acc, 120, 4)
     assert (got["ci_low"], got["ci_high"]) == pytest.approx((lo, hi), abs=1e-12)
     ll = lambda t, p: skm.log_loss(t, p, labels=list(range(k)))  # noqa: E731
-    lo, hi = _loop_reference(codes, b, a, ll, 250, 4)
+    lo, hi = _loop_reference(codes, b, a, ll, 120, 4)
     assert got["also"]["log_loss"]["ci_low"] == pytest.approx(lo, abs=1e-9)
     assert got["also"]["log_loss"]["ci_high"] == pytest.approx(hi, abs=1e-9)
     br = (lambda t, p: skm.brier_score_loss(t, p[:, 1])) if k == 2 else \
         (lambda t, p: skm.brier_score_loss(t, p, labels=list(range(k))))
-    lo, hi = _loop_reference(codes, b, a, br, 250, 4)
+    lo, hi = _loop_reference(codes, b, a, br, 120, 4)
     assert got["also"]["brier"]["ci_high"] == pytest.approx(hi, abs=1e-9)
     assert got["value"] == pytest.approx(acc(codes, a) - acc(codes, b))
+
+
+def test_fast_point_values_agree_with_scikit_learn_to_rounding():
+    rng = np.random.default_rng(7)
+    y = rng.choice(["a", "b", "c"], 300).astype(object)
+    a, b = rng.dirichlet([1, 1, 1], 300), rng.dirichlet([2, 1, 1], 300)
+    slow = loss_with_interval(y, a, b, "classification", ["a", "b", "c"], resamples=50, seed=1)
+    fast = loss_with_interval(y, a, b, "classification", ["a", "b", "c"], resamples=50, seed=1,
+                              reference_values=False)
+    assert fast["value"] == pytest.approx(slow["value"], abs=1e-12)
+    for m in ("log_loss", "brier"):
+        assert fast["also"][m]["value"] == pytest.approx(slow["also"][m]["value"], abs=1e-12)
+    assert (fast["ci_low"], fast["ci_high"]) == (slow["ci_low"], slow["ci_high"])

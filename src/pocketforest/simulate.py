@@ -161,11 +161,12 @@ def loss_coverage(n_sims: int = 500, *, task: str = "regression", n_classes: int
     draw = _generator(task, n_classes)
     rng = np.random.default_rng(seed)
     y, a, b = draw(rng, truth_rows)
-    truth = loss_with_interval(y, a, b, task, classes, resamples=1)["value"]
+    truth = loss_with_interval(y, a, b, task, classes, resamples=1, reference_values=False)["value"]
     covered, widths, below = 0, [], 0
     for s in range(n_sims):
         y, a, b = draw(rng, n_test)
-        r = loss_with_interval(y, a, b, task, classes, resamples=resamples, seed=seed + s, level=level)
+        r = loss_with_interval(y, a, b, task, classes, resamples=resamples, seed=seed + s, level=level,
+                               reference_values=False)
         covered += r["ci_low"] <= truth <= r["ci_high"]
         below += truth < r["ci_low"]
         widths.append(r["ci_high"] - r["ci_low"])
