@@ -180,3 +180,22 @@ def test_cap_uses_evidence_rank_when_given():
 def test_block_test_with_nothing_beyond_the_baseline_is_none():
     X = np.column_stack([np.ones(20), np.arange(20.0)])
     assert block_test(X, X, np.arange(20.0) % 3, "gaussian") is None
+
+
+def test_robust_multinomial_standard_errors_are_statsmodels_hc0():
+    df, y = _three_class(seed=8)
+    classes = ["c0", "c1", "c2"]
+    eq = fit_equation(MAIN, df, y, task="classification", target="y", fills=FILLS, kinds=KINDS,
+                      classes=classes, robust=True)
+    ref = sm.MNLogit(np.searchsorted(classes, y), _design(df)[:, :5]).fit(disp=0, cov_type="HC0")
+    se = np.array([[r["std_error"] for r in eq.table if r["class"] == c] for c in classes[1:]]).T
+    np.testing.assert_allclose(se, np.asarray(ref.bse), rtol=1e-4)
+
+
+def test_two_classes_may_be_fitted_as_multinomial_and_agree_with_binomial():
+    df, rng = _frame(seed=9)
+    y = np.where(rng.uniform(size=len(df)) < 1 / (1 + np.exp(-df.a)), "yes", "no").astype(object)
+    kw = dict(task="classification", target="y", fills=FILLS, kinds=KINDS, classes=["no", "yes"])
+    multi = fit_equation(MAIN, df, y, family="multinomial", **kw)
+    binom = fit_equation(MAIN, df, y, **kw)
+    np.testing.assert_allclose(multi.predict(df), binom.predict(df), atol=1e-6)
