@@ -56,10 +56,11 @@ def test_distill_with_synthetic_rows_reports_curve_and_depth(task, k):
     assert fixed.depth <= 3 and fixed.chosen_by == "set by --tree-depth"
 
 
-def test_negative_synthetic_rows_is_a_one_line_error(tmp_path):
-    from conftest import run_cli
+def test_negative_synthetic_rows_is_a_one_line_error(tmp_path, capsys):
+    from pocketforest.cli import main
     data = tmp_path / "d.csv"
     synthetic_table(n=120).to_csv(data, index=False)
-    r = run_cli("distill", str(data), "--target", "y", "--synthetic-rows", "-5", "--out", str(tmp_path / "b"))
-    assert r.returncode == 2 and r.stderr.startswith("error:") and "--synthetic-rows" in r.stderr
-    assert not (tmp_path / "b").exists()
+    rc = main(["distill", str(data), "--target", "y", "--synthetic-rows", "-5", "--out", str(tmp_path / "b")])
+    err = capsys.readouterr().err
+    assert rc == 2 and err.startswith("error:") and "--synthetic-rows" in err
+    assert len(err.strip().splitlines()) == 1 and not (tmp_path / "b").exists()

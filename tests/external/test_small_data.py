@@ -17,7 +17,7 @@ import pandas as pd
 import pytest
 from sklearn.datasets import load_breast_cancer, load_wine
 
-from conftest import ROOT, run_cli, synthetic_table
+from conftest import ROOT, synthetic_table
 from pocketforest import pipeline
 from pocketforest.discovery import Discovery
 from pocketforest.intake import prepare
@@ -119,10 +119,12 @@ def test_multiclass_fixture_bundle_has_a_multinomial_equation(bundles):
     assert np.allclose(probs.sum(1), 1.0) and probs.shape[1] == 3
 
 
-def test_poisson_on_a_non_count_target_is_a_one_line_error(tmp_path):
+def test_poisson_on_a_non_count_target_is_a_one_line_error(tmp_path, capsys):
+    from pocketforest.cli import main
     data = tmp_path / "d.csv"
     synthetic_table(n=120).to_csv(data, index=False)
-    r = run_cli("distill", str(data), "--target", "y", "--family", "poisson", "--trees", "10", "-q",
-                "--out", str(tmp_path / "b"))
-    assert r.returncode == 2 and r.stderr.startswith("error:") and "poisson needs counts" in r.stderr
-    assert len(r.stderr.strip().splitlines()) == 1 and not (tmp_path / "b").exists()
+    rc = main(["distill", str(data), "--target", "y", "--family", "poisson", "--trees", "10", "-q",
+               "--out", str(tmp_path / "b")])
+    err = capsys.readouterr().err
+    assert rc == 2 and err.startswith("error:") and "poisson needs counts" in err
+    assert len(err.strip().splitlines()) == 1 and not (tmp_path / "b").exists()
