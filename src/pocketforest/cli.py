@@ -41,6 +41,10 @@ def _distill_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--family", choices=["gaussian", "binomial", "multinomial", "poisson"],
                    help="GLM family for the equation (default from the task)")
     p.add_argument("--robust", action="store_true", help="sandwich (robust) standard errors for the equation")
+    p.add_argument("--synthetic-rows", type=int, default=0, metavar="N",
+                   help="add N rows sampled around the discovery rows, labelled by the forest, to fit the tree")
+    p.add_argument("--no-term-cap", action="store_true",
+                   help="keep every suggested term even when the confirmation rows are few per coefficient")
     p.add_argument("--force", action="store_true", help="replace an existing bundle")
     p.add_argument("--json", action="store_true", help="print the summary as JSON")
 
@@ -89,6 +93,8 @@ def _run_distill(data: str, target: str, args: argparse.Namespace) -> int:
 
     if getattr(args, "trees", 500) < 1:
         raise InputError("--trees must be at least 1")
+    if getattr(args, "synthetic_rows", 0) < 0:
+        raise InputError(f"--synthetic-rows {args.synthetic_rows} is negative: give 0 or more rows")
     out = args.out or _default_out(data)
     if Path(out).exists() and not args.force:
         raise InputError(f"{out} already exists: choose another --out or pass --force to replace it")
@@ -98,7 +104,8 @@ def _run_distill(data: str, target: str, args: argparse.Namespace) -> int:
             print(f"warning: {note}", file=sys.stderr)
     settings = Settings(trees=args.trees, min_samples_leaf=args.leaf_size, tree_depth=args.tree_depth,
                         target_fidelity=args.fidelity_target, seed=args.seed, split=parse_fractions(args.split),
-                        family=args.family, robust=args.robust, quiet=args.quiet)
+                        family=args.family, robust=args.robust, quiet=args.quiet,
+                        synthetic_rows=args.synthetic_rows, cap_terms=not args.no_term_cap)
     result = distill(table, settings)
     path = result.write(out, force=args.force)
     if args.json:

@@ -2,7 +2,13 @@
 
 Loss is the forest's metric minus the surrogate's on the same test rows (R² for regression,
 accuracy for classification): positive means the simple model gives up accuracy. Its interval is
-a paired percentile bootstrap over test rows (Efron & Tibshirani 1993, ch. 13).
+a paired percentile bootstrap over test rows (Efron & Tibshirani 1993, An Introduction to the
+Bootstrap, ch. 13): each resample draws test rows with replacement and scores both models on the
+same draw, so the interval reflects the correlation between their errors.
+
+The bootstrap is vectorised: a block of resamples becomes a matrix of row counts, and every
+metric that is a sum over rows (R², RMSE, MAE, accuracy, log loss, Brier) is a matrix-vector
+product, so 1,000 resamples of 25,000 rows take well under a second.
 """
 from __future__ import annotations
 
@@ -10,55 +16,132 @@ import numpy as np
 from sklearn.metrics import (accuracy_score, brier_score_loss, log_loss, mean_absolute_error,
                              mean_squared_error, r2_score, roc_auc_score)
 
+LOG_LOSS_EPS = np.finfo(float).eps   # the clipping scikit-learn's log_loss applies (float64)
 
-def metrics(y: np.ndarray, pred: np.ndarray, task: str, classes: list[str] | None = None) -> dict[str, float]:
+
+def metrics(y: np.ndarray, pred: np.ndarray, task: str, classes: list[str] | None = None, *,
+            auc: bool = True) -> dict[str, float]:
     """Regression: r2, rmse, mae. Classification (``pred`` = probabilities): accuracy, log_loss,
-    brier (mean over classes of the one-vs-rest Brier score for several classes), auc."""
+    brier (mean over rows of the summed squared error over classes for several classes), auc
+    (macro one-vs-rest for several classes)."""
     if task == "regression":
         return {"r2": float(r2_score(y, pred)), "rmse": float(np.sqrt(mean_squared_error(y, pred))),
                 "mae": float(mean_absolute_error(y, pred))}
-    codes = np.searchsorted(np.asarray(classes, dtype=object), np.asarray(y, dtype=object))
+    codes = _codes(y, classes)
     k = len(classes)
-    proba = np.clip(np.asarray(pred, dtype=float), 0.0, 1.0)
-    proba = proba / proba.sum(axis=1, keepdims=True)
+    proba = _proba(pred)
     out = {"accuracy": float(accuracy_score(codes, np.argmax(proba, axis=1))),
            "log_loss": float(log_loss(codes, proba, labels=list(range(k))))}
     if k == 2:
         out["brier"] = float(brier_score_loss(codes, proba[:, 1]))
-        out["auc"] = float(roc_auc_score(codes, proba[:, 1])) if len(np.unique(codes)) == 2 else float("nan")
+        if auc:
+            out["auc"] = float(roc_auc_score(codes, proba[:, 1])) if len(np.unique(codes)) == 2 else float("nan")
     else:
-        onehot = np.eye(k)[codes]
-        out["brier"] = float(np.mean(np.sum((proba - onehot) ** 2, axis=1)))
+        out["brier"] = float(brier_score_loss(codes, proba, labels=list(range(k))))
         present = len(np.unique(codes)) == k
-        out["auc"] = float(roc_auc_score(codes, proba, multi_class="ovr", average="macro",
-                                         labels=list(range(k)))) if present else float("nan")
+        if auc:
+            out["auc"] = float(roc_auc_score(codes, proba, multi_class="ovr", average="macro",
+                                             labels=list(range(k)))) if present else float("nan")
     return out
+
+
+def _codes(y: np.ndarray, classes: list[str]) -> np.ndarray:
+    return np.searchsorted(np.asarray(classes, dtype=object), np.asarray(y, dtype=object))
+
+
+def _proba(pred: np.ndarray) -> np.ndarray:
+    proba = np.clip(np.asarray(pred, dtype=float), 0.0, 1.0)
+    return proba / proba.sum(axis=1, keepdims=True)
 
 
 def loss_metric(task: str) -> str:
     return "r2" if task == "regression" else "accuracy"
 
 
+def _row_terms(y: np.ndarray, pred: np.ndarray, task: str, classes: list[str] | None) -> dict[str, np.ndarray]:
+    """Per-row pieces whose (weighted) sums give each metric."""
+    if task == "regression":
+        e = np.asarray(y, float) - np.asarray(pred, float)
+        return {"se": e ** 2, "ae": np.abs(e)}
+    codes = _codes(y, classes)
+    proba = _proba(pred)
+    k = len(classes)
+    p_true = proba[np.arange(len(codes)), codes]
+    if k == 2:  # scikit-learn's binary Brier score: squared error of the positive-class probability
+        brier = (proba[:, 1] - (codes == 1)) ** 2
+    else:
+        brier = np.sum((proba - np.eye(k)[codes]) ** 2, axis=1)
+    return {"correct": (np.argmax(proba, axis=1) == codes).astype(float),
+            "logloss": -np.log(np.clip(p_true, LOG_LOSS_EPS, 1.0)), "brier": brier}
+
+
+def _scores(sums: dict[str, np.ndarray], n: int, task: str, who: str) -> dict[str, np.ndarray]:
+    """Each metric for every resample, from the weighted row sums of one model (``who``)."""
+    if task == "regression":
+        sst = sums["yy"] - sums["y"] ** 2 / n
+        with np.errstate(divide="ignore", invalid="ignore"):
+            r2 = 1.0 - sums[who + "se"] / sst
+        return {"r2": r2, "rmse": np.sqrt(sums[who + "se"] / n), "mae": sums[who + "ae"] / n}
+    return {"accuracy": sums[who + "correct"] / n, "log_loss": sums[who + "logloss"] / n,
+            "brier": sums[who + "brier"] / n}
+
+
+HIGHER_IS_BETTER = {"r2": True, "accuracy": True, "rmse": False, "mae": False, "log_loss": False, "brier": False}
+
+
 def loss_with_interval(y: np.ndarray, forest_pred: np.ndarray, other_pred: np.ndarray, task: str,
                        classes: list[str] | None, *, resamples: int = 1000, seed: int = 0,
-                       level: float = 0.95) -> dict[str, float]:
-    """Forest metric minus surrogate metric, with a paired percentile bootstrap interval."""
-    name = loss_metric(task)
+                       level: float = 0.95, block: int = 100, reference_values: bool = True) -> dict:
+    """Forest metric minus surrogate metric, with a paired percentile bootstrap interval.
 
-    def score(idx: np.ndarray, pred: np.ndarray) -> float:
-        if task == "regression":
-            return float(r2_score(y[idx], pred[idx]))
-        codes = np.searchsorted(np.asarray(classes, dtype=object), np.asarray(y[idx], dtype=object))
-        return float(np.mean(np.argmax(pred[idx], axis=1) == codes))
+    The headline is R² (regression) or accuracy (classification); ``also`` holds the same for the
+    other additive metrics, signed so that positive always means the surrogate is worse
+    (surrogate minus forest for RMSE, MAE, log loss and Brier). AUC has no interval here: it is
+    not a sum over rows. ``reference_values=False`` takes the point values from the same sums as
+    the bootstrap (equal to scikit-learn's to rounding) and skips its input checks, for
+    simulations that call this thousands of times.
+    """
+    n = len(y)
+    parts = {"f" + k: v for k, v in _row_terms(y, forest_pred, task, classes).items()}
+    parts.update({"o" + k: v for k, v in _row_terms(y, other_pred, task, classes).items()})
+    if task == "regression":
+        yv = np.asarray(y, dtype=float)
+        parts.update({"y": yv, "yy": yv * yv})
+    names = list(parts)
+    V = np.column_stack([parts[k] for k in names])          # n x m: every per-row piece
 
-    all_rows = np.arange(len(y))
-    value = score(all_rows, forest_pred) - score(all_rows, other_pred)
+    def metrics_of(W: np.ndarray) -> tuple[dict, dict]:
+        S = W @ V                                           # one matrix product per block
+        sums = {k: S[:, j] for j, k in enumerate(names)}
+        return _scores(sums, n, task, "f"), _scores(sums, n, task, "o")
+
+    f0, o0 = metrics_of(np.ones((1, n)))
     rng = np.random.default_rng(seed)
-    diffs = np.empty(resamples)
-    for b in range(resamples):
-        idx = rng.integers(0, len(y), len(y))
-        diffs[b] = score(idx, forest_pred) - score(idx, other_pred)
+    diffs: dict[str, list] = {m: [] for m in f0}
+    for start in range(0, resamples, block):
+        b = min(block, resamples - start)
+        idx = rng.integers(0, n, (b, n))
+        idx += (np.arange(b) * n)[:, None]
+        W = np.bincount(idx.ravel(), minlength=b * n).reshape(b, n).astype(float)
+        fs, os_ = metrics_of(W)
+        for m in f0:
+            diffs[m].append(_signed(m, fs[m], os_[m]))
     alpha = (1.0 - level) / 2.0
-    lo, hi = np.quantile(diffs, [alpha, 1.0 - alpha])
-    return {"metric": name, "value": float(value), "ci_low": float(lo), "ci_high": float(hi),
-            "resamples": resamples, "level": level}
+    # point estimates from the reference library; the bootstrap sums reproduce them to rounding
+    if reference_values:
+        ref_f, ref_o = (metrics(y, p, task, classes, auc=False) for p in (forest_pred, other_pred))
+    else:
+        ref_f, ref_o = ({m: float(v[0]) for m, v in d.items()} for d in (f0, o0))
+    out_all = {}
+    for m in f0:
+        d = np.concatenate(diffs[m])
+        lo, hi = np.nanquantile(d, [alpha, 1.0 - alpha])
+        out_all[m] = {"value": float(_signed(m, ref_f[m], ref_o[m])), "ci_low": float(lo), "ci_high": float(hi)}
+    name = loss_metric(task)
+    head = out_all.pop(name)
+    return {"metric": name, **head, "resamples": resamples, "level": level, "method": "paired percentile bootstrap",
+            "also": out_all}
+
+
+def _signed(metric: str, forest, other):
+    return forest - other if HIGHER_IS_BETTER[metric] else other - forest

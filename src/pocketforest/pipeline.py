@@ -15,7 +15,7 @@ import pandas as pd
 from . import __version__
 from .design import fill_values, make_preprocessor, model_frame
 from .discovery import Discovery, discover
-from .equation import EquationFit, fit_equation
+from .equation import EquationFit, check_family, fit_equation
 from .evaluate import loss_with_interval, metrics
 from .forest import ForestFit, fit_forest
 from .importance import Importance, oob_permutation_importance
@@ -37,6 +37,8 @@ class Settings:
     robust: bool = False
     bootstrap: int = 1000
     quiet: bool = False
+    synthetic_rows: int = 0          # extra forest-labelled rows for the surrogate tree (Breiman & Shang 1996)
+    cap_terms: bool = True           # about ten confirmation rows per coefficient (Peduzzi et al. 1996)
 
 
 @dataclass
@@ -86,6 +88,7 @@ def distill(table: Table, settings: Settings | None = None) -> Distillation:
     s = settings or Settings()
     data, target, task = table.data, table.target, table.task
     y_all = data[target].to_numpy()
+    check_family(s.family, task, table.classes, y_all, target)   # fail before any fitting
     strata = y_all if task == "classification" else None
     splits = make_splits(len(data), s.split, s.seed, strata)
     disc, conf, test = (data.iloc[i].reset_index(drop=True) for i in (splits.discovery, splits.confirmation, splits.test))
@@ -113,15 +116,16 @@ def distill(table: Table, settings: Settings | None = None) -> Distillation:
     _say(s, "fitting the equation on the confirmation rows")
     baseline = main_effects([f for f in table.features if f.name in discovery.main_variables])
     equation = fit_equation(discovery.terms, conf, y_c, task=task, target=target, fills=fills, kinds=kinds,
-                            classes=forest.classes, family=s.family, robust=s.robust, baseline=baseline)
+                            classes=forest.classes, family=s.family, robust=s.robust, baseline=baseline,
+                            cap=s.cap_terms)
 
     _say(s, "distilling the surrogate tree")
     tree = distill_tree(forest, Xd, model_frame(conf, table.features), model_frame(test, table.features),
                         depth=s.tree_depth, target_fidelity=s.target_fidelity, seed=s.seed,
-                        min_leaf=s.min_samples_leaf)
+                        min_leaf=s.min_samples_leaf, n_synthetic=s.synthetic_rows)
 
     result = Distillation(table, s, splits, forest, importance, discovery, equation, tree, fills,
-                          {}, {}, {}, list(table.notes) + list(discovery.notes) + list(equation.notes))
+                          {}, {}, {}, list(table.notes) + list(discovery.notes) + list(equation.warnings))
     _judge(result, test, y_t)
     return result
 
