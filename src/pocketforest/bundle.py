@@ -84,7 +84,8 @@ def _manifest(r, created: str, nodes) -> dict:
         "source": {"file": os.path.basename(t.source), "rows_used": int(len(t.data)),
                    "rows_dropped_missing_target": int(t.rows_dropped_missing_target),
                    "dropped_columns": dict(t.dropped_columns)},
-        "features": [{**f.to_dict(), "fill": r.fills[f.name]} for f in t.features],
+        "features": [{**f.to_dict(), "fill": r.fills[f.name], **_training_profile(f, t.data.iloc[r.splits.discovery])}
+                     for f in t.features],
         "splits": r.splits.sizes(),
         "forest": {"trees": r.settings.trees, **{k: v for k, v in r.forest.settings.items() if k != "trees"},
                    "oob": r.forest.oob},
@@ -107,6 +108,22 @@ def _manifest(r, created: str, nodes) -> dict:
     if classes is not None:
         m["classes"] = classes
     return _clean(m)
+
+
+def _training_profile(f, rows) -> dict:
+    """What `compare` measures drift against: mean and sd (numeric) or level shares (categorical)
+    of the present values in the discovery rows, the rows the forest was fitted on."""
+    col = rows[f.name]
+    if f.kind == "numeric":
+        x = col.to_numpy(dtype=np.float64, na_value=np.nan)
+        x = x[~np.isnan(x)]
+        return {"mean": float(x.mean()) if len(x) else None,
+                "sd": float(x.std(ddof=1)) if len(x) > 1 else None}
+    present = col.dropna().astype(str)
+    present = present[present != ""]
+    counts = present.value_counts()
+    total = max(int(counts.sum()), 1)
+    return {"shares": {str(lv): float(counts.get(lv, 0)) / total for lv in (f.categories or [])}}
 
 
 def write_bundle(r, out: str | os.PathLike, *, force: bool = False) -> str:
