@@ -40,6 +40,8 @@ def node_mathml(node: Node, top: bool = True) -> str:
         return mn(node.value) if node.value >= 0 else paren(f"<mo>−</mo>{mn(-node.value)}")
     if isinstance(node, Sub):
         right = node.right
+        if isinstance(right, Const) and right.value == 0:
+            return node_mathml(node.left, top)
         if isinstance(right, Const) and right.value < 0:
             inner = f"{node_mathml(node.left, False)}<mo>+</mo>{mn(-right.value)}"
         else:

@@ -61,6 +61,7 @@ td.l,th.l{text-align:left}
 pre{background:var(--panel);border-left:3px solid var(--ochre);padding:.55rem .7rem;overflow-x:auto;font-size:.8rem;line-height:1.35}
 code{font-size:.88em;background:var(--panel);padding:0 .2em}
 pre code{background:none;padding:0}
+pre.wrap{white-space:pre-wrap;overflow-wrap:anywhere}
 .cards{display:flex;flex-wrap:wrap;gap:.7rem;margin:.8rem 0}
 .card{flex:1 1 12rem;background:var(--panel);border-top:4px solid var(--green);padding:.5rem .8rem}
 .card.tree{border-color:var(--ochre)}.card.equation{border-color:var(--slate)}
@@ -207,7 +208,7 @@ def _importance(m: dict) -> str:
                                           [[i["feature"], i["mean"], i["se"]] for i in imp])
 
 
-def _term_text(t) -> str:
+def _term_text(t, var: str) -> str:
     p = t.params
     if t.kind == "linear":
         return "straight line"
@@ -220,7 +221,8 @@ def _term_text(t) -> str:
     if t.kind == "categorical":
         return "one step per level"
     if t.kind == "interaction":
-        return "interaction with " + " and ".join(t.variables) + (" (squared)" if p.get("power") == 2 else "")
+        others = [v for v in t.variables if v != var]
+        return "interaction with " + " and ".join(others) + (" (squared)" if p.get("power") == 2 else "")
     return t.kind
 
 
@@ -231,13 +233,14 @@ def _shapes(r, m: dict) -> str:
     curves = shape_curves(r, m, variables)
     panels = []
     for s in curves:
-        terms = "; ".join(_term_text(t) for t in s["terms"]) or "not in the equation"
+        terms = "; ".join(_term_text(t, s["variable"]) for t in s["terms"]) or "not in the equation"
         panels.append(f"<div class='panel'>{plots.shape_plot(s)}<p><b>{_e(s['variable'])}</b> — equation: "
                       f"{_e(terms)}.</p></div>")
     src = {s["source"] for s in curves}
     return ("<p>Solid: the forest's partial dependence (Friedman 2001), the average prediction with the "
             "variable set to each value. Dashed or hollow: the same average for the equation, from its "
-            "fitted coefficients. Where they part, the equation misses the forest's shape. Ticks on the "
+            "fitted coefficients (for several classes, one colour per class). Where they part, the equation "
+            "misses the forest's shape. Ticks on the "
             "axis mark the deciles of the discovery rows. Curves: " + _e(", ".join(sorted(src))) + ".</p>"
             + "<div class='grid'>" + "".join(panels) + "</div>")
 
@@ -276,7 +279,7 @@ def _equation(r, m: dict) -> str:
                  + ("A missing number takes its discovery-row median: " + ", ".join(fills) + ". " if fills else "")
                  + "The same equation, term for term, is in <code>equation.txt</code>"
                  + ", <code>equation.tex</code> (LaTeX)" + " and the ONNX, SQL, Python and JavaScript exports.</p>")
-    parts.append(f"<p>Formula as statsmodels reads it:</p><pre><code>{_e(m['formula'])}</code></pre>")
+    parts.append(f"<p>Formula as statsmodels reads it:</p><pre class='wrap'><code>{_e(m['formula'])}</code></pre>")
     coef = eq["coefficients"]
     has_class = bool(coef) and "class" in coef[0]
     head = (["class"] if has_class else []) + ["term", "estimate", "std. error", "95% low", "95% high", "p"]

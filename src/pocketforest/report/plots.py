@@ -156,7 +156,7 @@ def shape_plot(shape: dict) -> str:
         for k, name in enumerate(outcomes):
             c_f = FOREST if single else CLASS_COLOURS[k % len(CLASS_COLOURS)]
             c_e = EQUATION if single else c_f
-            ax.plot(x, shape["forest"][k], color=c_f, lw=1.8, label="forest" if single else f"forest: {name}")
+            ax.plot(x, shape["forest"][k], color=c_f, lw=1.8, label="forest" if single else str(name))
             if shape.get("equation") is not None:
                 ax.plot(x, shape["equation"][k], color=c_e, lw=1.4, ls=(0, (4, 2)),
                         label="equation" if single else None)
@@ -173,7 +173,7 @@ def shape_plot(shape: dict) -> str:
             c = FOREST if single else CLASS_COLOURS[k % len(CLASS_COLOURS)]
             off = (k - (len(outcomes) - 1) / 2) * 0.12
             ax.plot(x + off - (width / 2 if shape.get("equation") is not None else 0), shape["forest"][k], "o",
-                    color=c, ms=5, label="forest" if single else f"forest: {name}")
+                    color=c, ms=5, label="forest" if single else str(name))
             if shape.get("equation") is not None:
                 ax.plot(x + off + width / 2, shape["equation"][k], "D", color=EQUATION if single else c,
                         mfc="white", ms=4.5, mew=1.2, label="equation" if single else None)
@@ -199,15 +199,15 @@ def interaction_plot(interactions: list[dict]) -> str:
         a, b = (names.index(v) for v in it["variables"])
         if it.get("h2") is not None:
             mat[a, b] = mat[b, a] = float(it["h2"])
-    size = min(6.2, 1.6 + 0.5 * k)
     longest = max((len(_short(n, 18)) for n in names), default=4)
-    fig, ax = figure(size + 1.0, size * 0.85 + 0.06 * longest, left=0.2 + 0.062 * longest,
-                     bottom=0.15 + 0.05 * longest, right=1.3)
+    cell = 0.42 if k <= 8 else 0.3
+    left, bottom = 0.2 + 0.062 * longest, 0.2 + 0.045 * longest
+    fig, ax = figure(left + k * cell + 1.2, bottom + k * cell + 0.15, left=left, bottom=bottom, right=1.2, top=0.15)
     ax.grid(False)
     cmap = matplotlib.colors.LinearSegmentedColormap.from_list("parchment_green", ["#f6f2e2", "#b9c98f", FOREST, "#1f3b1a"])
     cmap.set_bad("#ffffff00")
     top = max(0.05, float(np.nanmax(mat)) if np.isfinite(mat).any() else 0.05)
-    im = ax.imshow(np.ma.masked_invalid(mat), cmap=cmap, vmin=0, vmax=top)
+    im = ax.imshow(np.ma.masked_invalid(mat), cmap=cmap, vmin=0, vmax=top, aspect="auto")
     for i in range(k):
         for j in range(k):
             if np.isfinite(mat[i, j]) and i != j:
@@ -217,10 +217,10 @@ def interaction_plot(interactions: list[dict]) -> str:
     ax.set_yticks(range(k), [_short(n, 18) for n in names])
     for s in ax.spines.values():
         s.set_visible(False)
-    cax = fig.add_axes([1 - 1.05 / fig.get_figwidth(), ax.get_position().y0, 0.12 / fig.get_figwidth(),
+    cax = fig.add_axes([1 - 1.0 / fig.get_figwidth(), ax.get_position().y0, 0.12 / fig.get_figwidth(),
                         ax.get_position().height])
     cb = fig.colorbar(im, cax=cax)
-    cb.set_label("H² (share of the pair's joint effect that is interaction)")
+    cb.set_label("H²")
     cb.outline.set_linewidth(0.5)
     return to_svg(fig, "interaction strength between pairs of variables")
 
