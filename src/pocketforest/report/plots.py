@@ -205,7 +205,7 @@ def interaction_plot(interactions: list[dict]) -> str:
     fig, ax = figure(left + k * cell + 1.2, bottom + k * cell + 0.15, left=left, bottom=bottom, right=1.2, top=0.15)
     ax.grid(False)
     cmap = matplotlib.colors.LinearSegmentedColormap.from_list("parchment_green", ["#f6f2e2", "#b9c98f", FOREST, "#1f3b1a"])
-    cmap.set_bad("#ffffff00")
+    cmap = cmap.with_extremes(bad="#ffffff00")
     top = max(0.05, float(np.nanmax(mat)) if np.isfinite(mat).any() else 0.05)
     im = ax.imshow(np.ma.masked_invalid(mat), cmap=cmap, vmin=0, vmax=top, aspect="auto")
     for i in range(k):
