@@ -143,7 +143,7 @@ def write_bundle(r, out: str | os.PathLike, *, force: bool = False) -> str:
     try:
         for name, data in files.items():
             (tmp / name).write_bytes(data)
-        report = _report(r, manifest)
+        report = _report(r, manifest, set(files) | {"report.html", "manifest.json"})
         if report is not None:
             (tmp / "report.html").write_text(report, encoding="utf-8")
         manifest["artifacts"] = {name: sha256(tmp / name) for name in sorted(os.listdir(tmp))}
@@ -162,6 +162,6 @@ def write_bundle(r, out: str | os.PathLike, *, force: bool = False) -> str:
     return str(out)
 
 
-def _report(r, manifest: dict) -> str | None:
+def _report(r, manifest: dict, names: set[str] | None = None) -> str | None:
     from .report import render_report
-    return render_report(r, manifest)
+    return render_report(r, manifest, names)

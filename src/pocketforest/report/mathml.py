@@ -64,8 +64,10 @@ def lhs_mathml(eq, target: str, cls: str | None = None) -> str:
     t = mi(target)
     if eq.task == "regression":
         if eq.link == "log":
-            return f"<mrow><mi>log</mi><mo>⁡</mo><mi>μ</mi></mrow>"
-        return f"<mover>{t}<mo>^</mo></mover>"
+            return f"<mrow><mi>log</mi><mo>⁡</mo><mi>E</mi><mo>[</mo>{t}<mo>]</mo></mrow>"
+        if len(target) == 1:
+            return f"<mover accent='true'>{t}<mo>^</mo></mover>"
+        return f"<mrow><mtext>predicted</mtext><mspace width='0.3em'></mspace>{t}</mrow>"
     classes = eq.classes
     if len(classes) == 2:
         p = f"<mi>P</mi><mo>(</mo>{t}<mo>=</mo><mtext>{_e(classes[1])}</mtext><mo>)</mo>"

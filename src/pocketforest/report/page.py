@@ -262,7 +262,24 @@ def _interactions(m: dict) -> str:
             + _table(["pair", "H²", "other measures"], rows))
 
 
-def _equation(r, m: dict) -> str:
+def _present(files: set[str] | None, name: str) -> bool:
+    """Is ``name`` in the bundle? Without a file list, judge by whether this version prints code."""
+    if files is not None:
+        return name in files
+    return importlib.util.find_spec("pocketforest.export.code") is not None
+
+
+def _evidence_text(ev: dict) -> str:
+    parts = []
+    for k, v in ev.items():
+        if isinstance(v, float):
+            parts.append(f"{k.replace('_', ' ')} {_num(v)}")
+        elif isinstance(v, (int, str, bool)):
+            parts.append(f"{k.replace('_', ' ')}: {v}" if k != "reason" else str(v))
+    return "; ".join(parts)
+
+
+def _equation(r, m: dict, files: set[str] | None = None) -> str:
     eq = m["equation"]
     parts = []
     link = {"identity": "identity link", "logit": "logit link", "log": "log link"}.get(eq["link"], eq["link"])
@@ -277,9 +294,15 @@ def _equation(r, m: dict) -> str:
              if f["kind"] == "numeric" and "fill" in f and any(f["name"] in t["variables"] for t in m["terms"])]
     parts.append("<p class='note'>[<i>column</i> = level] is 1 when the row has that level, else 0. "
                  + ("A missing number takes its discovery-row median: " + ", ".join(fills) + ". " if fills else "")
-                 + "The same equation, term for term, is in <code>equation.txt</code>"
-                 + ", <code>equation.tex</code> (LaTeX)" + " and the ONNX, SQL, Python and JavaScript exports.</p>")
+                 + "The same equation, term for term, is in "
+                 + ", ".join(f"<code>{n}</code>" for n in ("equation.txt", "equation.tex", "equation.onnx", "equation.sql",
+                                                          "equation.py", "equation.js") if _present(files, n) or n in ("equation.txt", "equation.onnx"))
+                 + (" (LaTeX for a paper: <code>equation.tex</code>)" if _present(files, "equation.tex") else "") + ".</p>")
     parts.append(f"<p>Formula as statsmodels reads it:</p><pre class='wrap'><code>{_e(m['formula'])}</code></pre>")
+    terms = m.get("terms") or []
+    if any(t.get("evidence") for t in terms):
+        rows = [[t["kind"], " × ".join(t["variables"]), _evidence_text(t.get("evidence") or {})] for t in terms]
+        parts.append("<h3>Terms and why they are there</h3>" + _table(["term", "variables", "evidence (discovery rows)"], rows))
     coef = eq["coefficients"]
     has_class = bool(coef) and "class" in coef[0]
     head = (["class"] if has_class else []) + ["term", "estimate", "std. error", "95% low", "95% high", "p"]
@@ -353,10 +376,8 @@ def _example_row(m: dict) -> dict:
 
 
 def _elsewhere(m: dict, files: set[str] | None) -> str:
-    have_code = (files is not None and "equation.py" in files) or (
-        files is None and importlib.util.find_spec("pocketforest.export.code") is not None)
     row = _example_row(m)
-    py_row = "{" + ", ".join(f"{json.dumps(k)}: {json.dumps(v)}" for k, v in row.items()) + "}"
+    py_row = "{" + ", ".join(f"{json.dumps(k)}: {v!r}" for k, v in row.items()) + "}"
     feeds = ",\n         ".join(
         f"{json.dumps(f['onnx_input'])}: np.array([[{json.dumps(row[f['name']])}]], dtype="
         + ("np.float32)" if f["kind"] == "numeric" else "object)") for f in m["features"])
@@ -366,20 +387,26 @@ def _elsewhere(m: dict, files: set[str] | None) -> str:
              "<h3>ONNX (any onnxruntime: Python, C, C++, C#, Java, JavaScript)</h3>",
              f"<pre><code>import numpy as np, onnxruntime as ort\nsession = ort.InferenceSession(\"forest.onnx\")   "
              f"# or tree.onnx, equation.onnx\nfeeds = {{{_e(feeds)}}}\n{_e(out)} = session.run(None, feeds)</code></pre>"]
-    if have_code:
+    def other(ext: str) -> str:
+        return f"   {'--' if ext == 'sql' else '#' if ext == 'py' else '//'} or tree.{ext}" if _present(files, f"tree.{ext}") else ""
+
+    if _present(files, "equation.sql"):
         parts += ["<h3>SQL (SQLite or DuckDB)</h3>",
                   "<pre><code>-- load your rows into a table named input_rows, e.g. in the duckdb shell:\n"
                   "CREATE TABLE input_rows AS SELECT * FROM read_csv('new_rows.csv');\n"
-                  ".read equation.sql        -- or tree.sql; returns every input column plus the prediction\n"
-                  "-- sqlite3 shell:  .import --csv new_rows.csv input_rows   then   .read equation.sql</code></pre>",
-                  "<h3>Python (standard library only)</h3>",
+                  f".read equation.sql{other('sql')}\n"
+                  "-- sqlite3 shell:  .import --csv new_rows.csv input_rows   then   .read equation.sql\n"
+                  "-- the result: every column of input_rows plus the prediction</code></pre>"]
+    if _present(files, "equation.py"):
+        parts += ["<h3>Python (standard library only)</h3>",
                   "<pre><code>import importlib.util\nspec = importlib.util.spec_from_file_location(\"equation\", "
-                  "\"equation.py\")   # or tree.py\nequation = importlib.util.module_from_spec(spec)\n"
-                  f"spec.loader.exec_module(equation)\nprint(equation.predict({_e(py_row)}))</code></pre>",
-                  "<h3>JavaScript (Node.js or a browser)</h3>",
-                  f"<pre><code>const {{ predict }} = require(\"./equation.js\");   // or ./tree.js\n"
+                  f"\"equation.py\"){other('py')}\nequation = importlib.util.module_from_spec(spec)\n"
+                  f"spec.loader.exec_module(equation)\nprint(equation.predict({_e(py_row)}))</code></pre>"]
+    if _present(files, "equation.js"):
+        parts += ["<h3>JavaScript (Node.js or a browser)</h3>",
+                  f"<pre><code>const {{ predict }} = require(\"./equation.js\");{other('js')}\n"
                   f"console.log(predict({_e(json.dumps(row))}));</code></pre>"]
-    else:
+    if not any(_present(files, f"equation.{ext}") for ext in ("sql", "py", "js")):
         parts.append(_absent("This bundle carries no SQL, Python or JavaScript printouts of the models; "
                              "score it through ONNX."))
     pred_cols = ("<code>pred_forest</code>, <code>pred_tree</code>, <code>pred_equation</code>"
@@ -408,7 +435,7 @@ def render_report(r, m: dict, files: set[str] | dict | None = None) -> str:
     builders = {
         "data": lambda: _data(r, m), "scoreboard": lambda: _scoreboard(m), "importance": lambda: _importance(m),
         "shapes": lambda: _shapes(r, m), "interactions": lambda: _interactions(m),
-        "equation": lambda: _equation(r, m), "tree": lambda: _tree(r, m),
+        "equation": lambda: _equation(r, m, names), "tree": lambda: _tree(r, m),
         "fidelity-by-depth": lambda: _fidelity(r, m), "elsewhere": lambda: _elsewhere(m, names),
         "cautions": _cautions,
     }
