@@ -251,7 +251,7 @@ def tree_plot(nodes, task: str, classes: list[str] | None, max_depth: int = 4) -
     n_leaves = next(order)
     levels = max(depth_of[i] for i in pos) + 1
     w = min(12.0, max(4.5, 0.8 * n_leaves))
-    fig, ax = figure(w, 0.3 + 0.8 * levels, left=0.05, bottom=0.05, right=0.05, top=0.05)
+    fig, ax = figure(w, 0.3 + 0.95 * levels, left=0.05, bottom=0.05, right=0.05, top=0.05)
     ax.axis("off")
     ax.grid(False)
     values = [by_id[i].value[0] for i in pos if shown_leaf(by_id[i])] if task == "regression" else None
@@ -263,8 +263,9 @@ def tree_plot(nodes, task: str, classes: list[str] | None, max_depth: int = 4) -
         if not shown_leaf(n):
             for child, yes in ((n.left, n.level is None), (n.right, n.level is not None)):
                 cx, cy = pos[child]
-                ax.plot([x, cx], [y - 0.2, cy + 0.2], color="#8b8570", lw=0.8, zorder=1)
-                ax.text(x + 0.7 * (cx - x), y + 0.7 * (cy - y), "yes" if yes else "no", ha="center", va="center",
+                ax.plot([x, cx], [y - 0.27, cy + 0.27], color="#8b8570", lw=0.8, zorder=1)
+                y0, y1 = y - 0.27, cy + 0.27
+                ax.text(x + 0.55 * (cx - x), y0 + 0.55 * (y1 - y0), "yes" if yes else "no", ha="center", va="center",
                         fontsize=fs - 0.8, color=FOREST if yes else LOSS,
                         bbox=dict(boxstyle="round,pad=0.1", fc="#fbfaf5", ec="none"), zorder=2)
     for i, (x, y) in pos.items():
@@ -276,20 +277,20 @@ def tree_plot(nodes, task: str, classes: list[str] | None, max_depth: int = 4) -
                 face = cmap((n.value[0] - vmin) / (vmax - vmin) if vmax > vmin else 0.5)
         else:
             text = f"{_condition(n)}\n{n.samples} rows"
-        box = FancyBboxPatch((x - 0.45, y - 0.2), 0.9, 0.4, boxstyle="round,pad=0.02,rounding_size=0.06",
+        box = FancyBboxPatch((x - 0.46, y - 0.27), 0.92, 0.54, boxstyle="round,pad=0.02,rounding_size=0.06",
                              fc=face, ec="#6f6a58", lw=0.7, zorder=3)
         ax.add_patch(box)
         dark = task == "regression" and shown_leaf(n) and vmax > vmin and (n.value[0] - vmin) / (vmax - vmin) > 0.7
         ax.text(x, y, text, ha="center", va="center", fontsize=fs, color="white" if dark else INK, zorder=4)
     ax.set_xlim(-0.5, n_leaves - 0.5)
-    ax.set_ylim(-levels + 0.65, 0.25)
+    ax.set_ylim(-levels + 0.68, 0.32)
     return to_svg(fig, "the surrogate tree")
 
 
 def _condition(n) -> str:
     if n.level is not None:
-        return f"{_short(n.feature, 12)} = {_short(n.level if n.level else '(missing)', 10)}?"
-    return f"{_short(n.feature, 12)} ≤ {n.threshold:.4g}?"
+        return f"{_short(n.feature, 14)}\n= {_short(n.level if n.level else '(missing)', 12)}?"
+    return f"{_short(n.feature, 14)}\n≤ {n.threshold:.4g}?"
 
 
 def _leaf_text(n, task: str, classes, cut: bool) -> tuple[str, str]:

@@ -50,13 +50,23 @@ def shape_curves(r, m: dict, variables: list[str]) -> list[dict]:
         f = kinds[var]
         stored = _stored(r, var)
         grid, forest = stored if stored else _forest_pd(r, disc, sample, f)
+        equation = _equation_pd(r, sample, var, grid, f.kind)
+        scale = _scale(r)
+        if stored:
+            # A stored curve may have been centred by the step that made it; centre both lines so
+            # their shapes compare whatever convention it used.
+            forest, equation = _centred(forest), _centred(equation)
+            scale = f"{scale[:28]} (centred)"
         out.append({"variable": var, "kind": f.kind, "grid": list(grid), "forest": forest,
-                    "equation": _equation_pd(r, sample, var, grid, f.kind),
-                    "outcomes": _outcomes(r), "scale": _scale(r),
+                    "equation": equation, "outcomes": _outcomes(r), "scale": scale,
                     "deciles": _deciles(disc[var]) if f.kind == "numeric" else None,
                     "terms": [t for t in r.equation.terms if var in t.variables],
                     "source": "discovery step" if stored else "computed for this report"})
     return out
+
+
+def _centred(curves: list[list[float]]) -> list[list[float]]:
+    return [(np.asarray(c, dtype=float) - float(np.mean(c))).tolist() for c in curves]
 
 
 def _outcomes(r) -> list[str]:
