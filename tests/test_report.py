@@ -174,3 +174,19 @@ def test_report_renders_in_headless_chromium(bundles, tmp_path):
     # the figures are drawn: the forest green of the bars/lines appears
     green = np.all(np.abs(img - np.array([0x3f, 0x6a, 0x35]) / 255) < 0.06, axis=2)
     assert green.sum() > 500
+
+
+def test_scoring_snippets_follow_the_bundle_files(with_terms):
+    """Snippets appear for the exports the bundle holds and refer to its files by name."""
+    from pocketforest.report import render_report
+    r, m = with_terms
+    full = {"forest.onnx", "tree.onnx", "equation.onnx", "equation.txt", "tree.txt", "reference.csv",
+            "equation.sql", "equation.py", "equation.js", "tree.sql", "tree.py", "tree.js", "equation.tex"}
+    s = _sections(render_report(r, m, full))["elsewhere"]
+    for needle in ("forest.onnx", ".read equation.sql", "or tree.sql", "spec_from_file_location(\"equation\"",
+                   "require(\"./equation.js\")", "reference.csv", "pocketforest verify ."):
+        assert needle in s, needle
+    bare = _sections(render_report(r, m, {"forest.onnx", "tree.onnx", "equation.onnx", "reference.csv"}))
+    assert "equation.sql" not in bare["elsewhere"] and "require(" not in bare["elsewhere"]
+    assert "no SQL, Python or JavaScript" in bare["elsewhere"] and "forest.onnx" in bare["elsewhere"]
+    assert "equation.tex" not in bare["equation"]
