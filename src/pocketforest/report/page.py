@@ -344,8 +344,8 @@ def _tree(r, m: dict) -> str:
     what = "its prediction" if m["task"] == "regression" else "its most likely class and that class's probability"
     caption = (f"Depth {t['depth']}, {t['leaves']} leaves, grown on the discovery rows labelled by the forest "
                f"(Craven &amp; Shavlik 1996). Each box gives the number of discovery rows reaching it; a leaf shows "
-               f"{what}. Follow \"yes\" when the box's condition holds. A missing number takes its median before "
-               "the comparison; an unseen category answers \"no\"."
+               f"{what}. Follow ✓ when the box's condition holds, ✗ when it does not. A missing number takes its median before "
+               "the comparison; an unseen category takes ✗."
                + (" Below level 4 each subtree is folded into one box marked ⋯ (its average); "
                   "<code>tree.txt</code> holds the whole tree." if deeper else ""))
     return (_figure(fig, caption) + f"<p>Depth chosen: {_e(t.get('chosen_by', ''))}.</p>")

@@ -265,8 +265,8 @@ def tree_plot(nodes, task: str, classes: list[str] | None, max_depth: int = 4) -
                 cx, cy = pos[child]
                 ax.plot([x, cx], [y - 0.27, cy + 0.27], color="#8b8570", lw=0.8, zorder=1)
                 y0, y1 = y - 0.27, cy + 0.27
-                ax.text(x + 0.55 * (cx - x), y0 + 0.55 * (y1 - y0), "yes" if yes else "no", ha="center", va="center",
-                        fontsize=fs - 0.8, color=FOREST if yes else LOSS,
+                ax.text(x + 0.55 * (cx - x), y0 + 0.55 * (y1 - y0), "✓" if yes else "✗", ha="center", va="center",
+                        fontsize=fs + 3, fontweight="bold", color=FOREST if yes else LOSS,
                         bbox=dict(boxstyle="round,pad=0.1", fc="#fbfaf5", ec="none"), zorder=2)
     for i, (x, y) in pos.items():
         n = by_id[i]
