@@ -63,6 +63,17 @@ def test_compare_on_the_test_rows_reproduces_the_manifest(fitted, name):
     assert all(abs(col["smd"]) < 0.4 for col in c.drift["columns"] if col["kind"] == "numeric")
 
 
+def test_parquet_rows_give_the_same_numbers(fitted, tmp_path):
+    from pocketforest.compare import compare
+    bundle, csv, _ = fitted["regression"]
+    pq = tmp_path / "rows.parquet"
+    pd.read_csv(csv).to_parquet(pq, index=False)
+    a, b = compare(bundle, csv).to_dict(), compare(bundle, pq).to_dict()
+    for model in ("forest", "tree", "equation"):
+        assert a["evaluation"][model] == pytest.approx(b["evaluation"][model], rel=1e-12)
+    assert a["drift"]["share_outside_envelope"] == b["drift"]["share_outside_envelope"]
+
+
 def test_manifest_records_training_profile(fitted):
     bundle, _, r = fitted["regression"]
     m = _manifest(bundle)
@@ -126,13 +137,14 @@ def test_cli_text_json_out_and_thresholds(fitted, tmp_path, capsys):
     (lambda df: df.drop(columns="y"), "no column 'y'"),
     (lambda df: df.assign(y="high"), "must be numeric"),
     (lambda df: df.drop(columns="x2"), "missing column"),
+    (lambda df: df, "--out"),
 ])
 def test_bad_input_is_one_error_line(fitted, tmp_path, capsys, mutate, expect):
     from pocketforest.cli import main
     bundle, csv, _ = fitted["regression"]
     path = tmp_path / "bad.csv"
     mutate(pd.read_csv(csv)).to_csv(path, index=False)
-    out = tmp_path / "never.json"
+    out = tmp_path / ("never.json" if expect != "--out" else "never.txt")
     assert main(["compare", str(bundle), str(path), "--out", str(out)]) == 2
     lines = capsys.readouterr().err.strip().splitlines()
     assert len(lines) == 1 and lines[0].startswith("error:") and expect in lines[0], lines

@@ -68,6 +68,7 @@ def test_bundle_report_has_every_section_and_no_address(bundles, name):
     for key in WITH_FIGURE:
         assert "<svg" in sections[key], key
     assert "<math" in sections["equation"]
+    assert "could not be drawn" not in page
     assert "decision support only" in sections["cautions"]
     assert "confirm" in sections["cautions"].lower() and "training range" in sections["cautions"]
     _assert_offline(page)
@@ -81,6 +82,7 @@ def test_report_with_suggested_terms(with_terms):
     page = render_report(r, m)
     s = _sections(page)
     _assert_offline(page)
+    assert "could not be drawn" not in page
     eq = s["equation"]
     assert "<msup>" in eq and "<mi>max</mi>" in eq  # the quadratic and the hinge, typeset
     assert eq.count("<mo>·</mo><mi mathvariant='normal'>x3</mi>") >= 1  # x2 · x3
@@ -190,3 +192,14 @@ def test_scoring_snippets_follow_the_bundle_files(with_terms):
     assert "equation.sql" not in bare["elsewhere"] and "require(" not in bare["elsewhere"]
     assert "no SQL, Python or JavaScript" in bare["elsewhere"] and "forest.onnx" in bare["elsewhere"]
     assert "equation.tex" not in bare["equation"]
+
+
+def test_a_failing_section_is_reported_in_place(with_terms, capsys):
+    """A section that cannot be drawn says so on the page and on stderr; the others still render."""
+    from pocketforest.report import render_report
+    r, m = with_terms
+    broken = dict(m, interactions=[{"variables": ["x1", "no_such_column"], "h2": "not a number"}])
+    s = _sections(render_report(r, broken))
+    assert "could not be drawn" in s["interactions"] and "manifest.json" in s["interactions"]
+    assert "<svg" in s["importance"] and "<svg" in s["tree"]
+    assert "report section 'interactions' could not be drawn" in capsys.readouterr().err

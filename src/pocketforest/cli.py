@@ -151,7 +151,9 @@ def _run(args: argparse.Namespace) -> int:
         print(f"{len(checks) - len(bad)} of {len(checks)} checks passed" + ("" if not bad else ": the bundle does NOT reproduce its reference rows"))
         return 1 if bad else 0
     if args.command == "compare":
-        from .compare import compare, write_json
+        from .compare import check_out, compare, write_json
+        if args.out:
+            check_out(args.out)
         if args.max_outside is not None and not 0.0 <= args.max_outside <= 1.0:
             raise InputError(f"--max-outside {args.max_outside:g} is a share: give a number from 0 to 1")
         found = compare(args.bundle, args.data, max_loss=args.max_loss, max_outside=args.max_outside)

@@ -261,13 +261,19 @@ def comparison_text(d: dict) -> str:
     return "\n".join(lines)
 
 
-def write_json(d: dict, out: str | os.PathLike) -> None:
-    """Atomic write: a temporary file beside ``out``, then a rename."""
+def check_out(out: str | os.PathLike) -> Path:
+    """Refuse a bad ``--out`` before any work is done."""
     out = Path(out)
     if out.suffix.lower() != ".json":
         raise InputError(f"--out {out}: compare writes its findings to a .json file")
     if not out.parent.exists():
         raise InputError(f"--out {out}: folder {out.parent} does not exist: create it first")
+    return out
+
+
+def write_json(d: dict, out: str | os.PathLike) -> None:
+    """Atomic write: a temporary file beside ``out``, then a rename."""
+    out = check_out(out)
     fd, tmp = tempfile.mkstemp(prefix=".pf-compare-", suffix=".json", dir=str(out.parent))
     try:
         with os.fdopen(fd, "w", encoding="utf-8") as fh:

@@ -11,6 +11,7 @@ from __future__ import annotations
 import html
 import importlib.util
 import json
+import sys
 
 import numpy as np
 
@@ -429,6 +430,20 @@ def _cautions() -> str:
 
 # ---------------------------------------------------------------- the page
 
+def _build(key: str, builder) -> str:
+    """One section; if drawing it fails, the page says so in place and the rest still ships.
+
+    The bundle's numbers live in manifest.json, so a figure that cannot be drawn must not cost the
+    user the bundle; the failure is shown on the page and on stderr, never hidden.
+    """
+    try:
+        return builder()
+    except Exception as exc:  # a bug in one figure must not lose the whole bundle
+        print(f"warning: report section '{key}' could not be drawn ({type(exc).__name__}: {exc})", file=sys.stderr)
+        return (f"<p class='warn'>This section could not be drawn ({_e(type(exc).__name__)}: {_e(exc)}). "
+                "The numbers it would show are in <code>manifest.json</code>.</p>")
+
+
 def render_report(r, m: dict, files: set[str] | dict | None = None) -> str:
     """The whole page. ``files`` (optional): names of the bundle's files, to show only the exports present."""
     names = set(files) if files is not None else None
@@ -439,7 +454,7 @@ def render_report(r, m: dict, files: set[str] | dict | None = None) -> str:
         "fidelity-by-depth": lambda: _fidelity(r, m), "elsewhere": lambda: _elsewhere(m, names),
         "cautions": _cautions,
     }
-    body = [_section(i + 1, key, title, builders[key]()) for i, (key, title) in enumerate(SECTIONS)]
+    body = [_section(i + 1, key, title, _build(key, builders[key])) for i, (key, title) in enumerate(SECTIONS)]
     nav = "<nav><ol>" + "".join(f"<li><a href='#{k}'>{_e(t)}</a></li>" for k, t in SECTIONS) + "</ol></nav>"
     head = (f"<header><h1>{_e(m['target'])}: a forest, an equation and a tree</h1>"
             f"<div class='meta'>pocketforest {_e(m.get('tool_version', ''))} · {_e(m['task'])} · "
