@@ -369,7 +369,7 @@ def _example_row(m: dict) -> dict:
     for f in m["features"]:
         if f["kind"] == "numeric":
             v = f.get("fill", f.get("min"))
-            row[f["name"]] = float(v) if v is not None else None
+            row[f["name"]] = float(f"{float(v):.6g}") if v is not None else None  # a typical value, shortly written
         else:
             cats = f.get("categories") or [""]
             row[f["name"]] = cats[0]
