@@ -115,15 +115,10 @@ def test_equation_curve_is_its_own_partial_dependence(with_terms):
     assert len(mid) == len(slopes)
 
 
-def test_forest_curve_for_a_category_finds_the_planted_effect():
+def test_forest_curve_for_a_category_finds_the_planted_effect(with_terms):
     """Constructed truth (conftest.synthetic_table): colour 'red' adds 1.0 to the outcome."""
-    from pocketforest.intake import prepare
-    from pocketforest.pipeline import Settings, distill
     from pocketforest.report.shapes import shape_curves
-    df = synthetic_table(n=600, seed=9)
-    r = distill(prepare(df, "y"), Settings(trees=60, seed=1, quiet=True, bootstrap=50))
-    from pocketforest.bundle import build_files
-    _, m = build_files(r, "2026-01-01T00:00:00+00:00")
+    r, m = with_terms
     (c,) = shape_curves(r, m, ["colour"])
     pd_ = dict(zip(c["grid"], c["forest"][0]))
     gap = pd_["red"] - (pd_["blue"] + pd_["green"]) / 2
