@@ -77,7 +77,7 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("compare", help="loss, fidelity and drift of a bundle on new labelled rows",
                        description="Score new labelled rows with all three models of a bundle; print each "
-                       "model's metrics, the surrogates' fidelity and loss with 95%% intervals, and how far the "
+                       "model's metrics, the surrogates' fidelity and loss with 95% intervals, and how far the "
                        "rows stray from the training data. Exit 1 when --max-loss or --max-outside is exceeded.")
     p.add_argument("bundle")
     p.add_argument("data", help=".csv, .tsv or .parquet table holding the target column")
