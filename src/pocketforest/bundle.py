@@ -84,7 +84,8 @@ def _manifest(r, created: str, nodes) -> dict:
         "source": {"file": os.path.basename(t.source), "rows_used": int(len(t.data)),
                    "rows_dropped_missing_target": int(t.rows_dropped_missing_target),
                    "dropped_columns": dict(t.dropped_columns)},
-        "features": [{**f.to_dict(), "fill": r.fills[f.name]} for f in t.features],
+        "features": [{**f.to_dict(), "fill": r.fills[f.name], **_training_profile(f, t.data.iloc[r.splits.discovery])}
+                     for f in t.features],
         "splits": r.splits.sizes(),
         "forest": {"trees": r.settings.trees, **{k: v for k, v in r.forest.settings.items() if k != "trees"},
                    "oob": r.forest.oob},
@@ -111,6 +112,22 @@ def _manifest(r, created: str, nodes) -> dict:
     return _clean(m)
 
 
+def _training_profile(f, rows) -> dict:
+    """What `compare` measures drift against: mean and sd (numeric) or level shares (categorical)
+    of the present values in the discovery rows, the rows the forest was fitted on."""
+    col = rows[f.name]
+    if f.kind == "numeric":
+        x = col.to_numpy(dtype=np.float64, na_value=np.nan)
+        x = x[~np.isnan(x)]
+        return {"mean": float(x.mean()) if len(x) else None,
+                "sd": float(x.std(ddof=1)) if len(x) > 1 else None}
+    present = col.dropna().astype(str)
+    present = present[present != ""]
+    counts = present.value_counts()
+    total = max(int(counts.sum()), 1)
+    return {"shares": {str(lv): float(counts.get(lv, 0)) / total for lv in (f.categories or [])}}
+
+
 def write_bundle(r, out: str | os.PathLike, *, force: bool = False) -> str:
     """Build every file in a temporary folder beside ``out``, then move it into place."""
     out = Path(out)
@@ -128,7 +145,7 @@ def write_bundle(r, out: str | os.PathLike, *, force: bool = False) -> str:
     try:
         for name, data in files.items():
             (tmp / name).write_bytes(data)
-        report = _report(r, manifest)
+        report = _report(r, manifest, set(files) | {"report.html", "manifest.json"})
         if report is not None:
             (tmp / "report.html").write_text(report, encoding="utf-8")
         manifest["artifacts"] = {name: sha256(tmp / name) for name in sorted(os.listdir(tmp))}
@@ -147,6 +164,6 @@ def write_bundle(r, out: str | os.PathLike, *, force: bool = False) -> str:
     return str(out)
 
 
-def _report(r, manifest: dict) -> str | None:
+def _report(r, manifest: dict, names: set[str] | None = None) -> str | None:
     from .report import render_report
-    return render_report(r, manifest)
+    return render_report(r, manifest, names)

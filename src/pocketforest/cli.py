@@ -78,6 +78,20 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("verify", help="check a bundle's files and every exported form against its reference rows")
     p.add_argument("bundle")
     _common(p)
+
+    p = sub.add_parser("compare", help="loss, fidelity and drift of a bundle on new labelled rows",
+                       description="Score new labelled rows with all three models of a bundle; print each "
+                       "model's metrics, the surrogates' fidelity and loss with 95% intervals, and how far the "
+                       "rows stray from the training data. Exit 1 when --max-loss or --max-outside is exceeded.")
+    p.add_argument("bundle")
+    p.add_argument("data", help=".csv, .tsv or .parquet table holding the target column")
+    p.add_argument("--json", action="store_true", help="print the findings as JSON")
+    p.add_argument("--out", help="also write the findings as JSON to this .json file")
+    p.add_argument("--max-loss", type=float, metavar="X",
+                   help="exit 1 when the tree or the equation loses more than X (R² or accuracy) against the forest")
+    p.add_argument("--max-outside", type=float, metavar="SHARE",
+                   help="exit 1 when more than SHARE (0-1) of the rows have an input outside the training envelope")
+    _common(p)
     return parser
 
 
@@ -143,6 +157,18 @@ def _run(args: argparse.Namespace) -> int:
         bad = [c for c in checks if not c.ok]
         print(f"{len(checks) - len(bad)} of {len(checks)} checks passed" + ("" if not bad else ": the bundle does NOT reproduce its reference rows"))
         return 1 if bad else 0
+    if args.command == "compare":
+        from .compare import check_out, compare, write_json
+        if args.out:
+            check_out(args.out)
+        if args.max_outside is not None and not 0.0 <= args.max_outside <= 1.0:
+            raise InputError(f"--max-outside {args.max_outside:g} is a share: give a number from 0 to 1")
+        found = compare(args.bundle, args.data, max_loss=args.max_loss, max_outside=args.max_outside)
+        d = found.to_dict()
+        if args.out:
+            write_json(d, args.out)
+        print(json.dumps(d, indent=2) if args.json else found.text())
+        return found.exit_code
     build_parser().print_help()
     return 2
 

@@ -1,29 +1,69 @@
-"""The terminal summary after `distill` (and its JSON twin for --json)."""
+"""The terminal summary after `distill`, and its JSON twin for ``--json``.
+
+The text is printed from the dictionary that ``--json`` prints, so the two always show the same
+numbers: a compact scoreboard, the surrogates' fidelity and loss with intervals, the formula, the
+bundle path and the command that opens the report.
+"""
 from __future__ import annotations
+
+import shlex
+import sys
+from pathlib import Path
+
+MODELS = ("forest", "tree", "equation")
+
+
+def open_command(report: str, platform: str | None = None) -> str:
+    """The usual command that opens a file in the desktop's browser on this platform."""
+    platform = platform or sys.platform
+    quoted = shlex.quote(report)
+    if platform == "darwin":
+        return f"open {quoted}"
+    if platform.startswith("win"):
+        return f'start "" "{report}"'
+    return f"xdg-open {quoted}"
 
 
 def summary_dict(r, path: str) -> dict:
+    report = str(Path(path) / "report.html")
     return {"bundle": path, "task": r.table.task, "target": r.table.target, "splits": r.splits.sizes(),
             "oob": r.forest.oob, "evaluation": r.evaluation, "fidelity": r.fidelity, "loss": r.loss,
             "formula": r.equation.formula, "tree": {"depth": r.tree.depth, "leaves": r.tree.leaves},
-            "importance": [i.to_dict() for i in r.importance], "warnings": r.warnings}
+            "importance": [i.to_dict() for i in r.importance], "warnings": r.warnings,
+            "report": report, "open_report": open_command(report),
+            "verify": f"pocketforest verify {shlex.quote(path)}"}
+
+
+def _f(v, fmt: str) -> str:
+    return "–" if v is None else format(v, fmt)
+
+
+def format_summary(d: dict) -> str:
+    """Text form of :func:`summary_dict`."""
+    ev = d["evaluation"]
+    names = list(ev["forest"].keys())
+    width = max(10, *(len(n) + 2 for n in names))
+    sp = d["splits"]
+    lines = [f"pocketforest: {d['target']} ({d['task']}); rows {sp['discovery']} discovery / "
+             f"{sp['confirmation']} confirmation / {sp['test']} test", ""]
+    head = f"{'on ' + str(ev['n']) + ' test rows':<16}" + "".join(f"{n:>{width}}" for n in names)
+    lines += [head + f"{'fidelity':>22}{'loss (95% interval)':>34}", "-" * (len(head) + 56)]
+    for m in MODELS:
+        row = f"{m:<16}" + "".join(f"{_f(ev[m][n], '.4f'):>{width}}" for n in names)
+        if m == "forest":
+            row += f"{'(reference)':>22}"
+        else:
+            fid = ", ".join(f"{k} {_f(v, '.3f')}" for k, v in d["fidelity"][m].items())
+            lo = d["loss"][m]
+            row += f"{fid:>22}" + f"{lo['metric']} {_f(lo['value'], '+.4f')} ({_f(lo['ci_low'], '+.4f')} to {_f(lo['ci_high'], '+.4f')})".rjust(34)
+        lines.append(row)
+    lines += ["", f"equation: {d['formula']}", f"tree:     depth {d['tree']['depth']}, {d['tree']['leaves']} leaves"]
+    if d.get("warnings"):
+        n = len(d["warnings"])
+        lines.append(f"notes:    {n} (data and fitting notes; all in the report's first section)")
+    lines += ["", f"bundle:   {d['bundle']}", f"report:   {d['open_report']}", f"check:    {d['verify']}"]
+    return "\n".join(lines)
 
 
 def summary_text(r, path: str) -> str:
-    ev = r.evaluation
-    names = list(ev["forest"].keys())
-    width = max(len(n) for n in names) + 2
-    lines = [f"pocketforest: {r.table.target} ({r.table.task}), test rows n = {ev['n']}", ""]
-    lines.append("model     " + "".join(f"{n:>{width + 6}}" for n in names))
-    for m in ("forest", "tree", "equation"):
-        lines.append(f"{m:<10}" + "".join(f"{ev[m][n]:>{width + 6}.4f}" for n in names))
-    lines.append("")
-    for m in ("tree", "equation"):
-        lo = r.loss[m]
-        fid = ", ".join(f"{k} {v:.3f}" for k, v in r.fidelity[m].items())
-        lines.append(f"{m:<9} fidelity {fid}; loss in {lo['metric']} {lo['value']:+.4f} "
-                     f"(95% interval {lo['ci_low']:+.4f} to {lo['ci_high']:+.4f})")
-    lines += ["", f"equation: {r.equation.formula}", f"tree: depth {r.tree.depth}, {r.tree.leaves} leaves",
-              "", f"bundle: {path}", f"report: open {path}/report.html",
-              f"check it anywhere: pocketforest verify {path}"]
-    return "\n".join(lines)
+    return format_summary(summary_dict(r, path))

@@ -1,0 +1,162 @@
+"""`compare` on new labelled rows: it must reproduce distill's own test-row numbers when given those
+rows, measure drift it is shown, and keep the CLI contract (exit 0 / 1 on a crossed threshold / 2)."""
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from conftest import run_cli, synthetic_table
+
+# ONNX forests and trees compute in float32 (METHODS.md, Transport) and every graph returns float32,
+# so each prediction may differ from the fitting libraries' float64 value by about 1e-7 relative;
+# metrics averaged over ~125 rows moved by at most 2e-8 when this was written (regression, two and
+# three classes). 1e-6 leaves room for summation order while still catching a wrong row or model.
+METRIC_RTOL = 1e-6
+METRIC_ATOL = 1e-6
+
+
+@pytest.fixture(scope="module")
+def fitted(tmp_path_factory):
+    """Small regression and three-class bundles with their test rows written as CSV (target kept)."""
+    from pocketforest.intake import prepare
+    from pocketforest.pipeline import Settings, distill
+    base = tmp_path_factory.mktemp("compare")
+    out = {}
+    for name, task, k in (("regression", "regression", 2), ("multiclass", "classification", 3)):
+        df = synthetic_table(n=500, seed=11, task=task, n_classes=k)
+        r = distill(prepare(df, "y", source=f"{name}.csv"), Settings(trees=40, seed=5, quiet=True, bootstrap=300))
+        bundle = Path(r.write(base / name))
+        test_rows = r.table.data.iloc[r.splits.test]
+        csv = base / f"{name}_test.csv"
+        test_rows.to_csv(csv, index=False)
+        out[name] = (bundle, csv, r)
+    return out
+
+
+def _manifest(bundle: Path) -> dict:
+    return json.loads((bundle / "manifest.json").read_text())
+
+
+@pytest.mark.parametrize("name", ["regression", "multiclass"])
+def test_compare_on_the_test_rows_reproduces_the_manifest(fitted, name):
+    from pocketforest.compare import compare
+    bundle, csv, _ = fitted[name]
+    m = _manifest(bundle)
+    c = compare(bundle, csv)
+    assert c.rows == m["splits"]["test"] and c.exit_code == 0
+    for model in ("forest", "tree", "equation"):
+        for metric, want in m["evaluation"][model].items():
+            got = c.evaluation[model][metric]
+            assert got == pytest.approx(want, rel=METRIC_RTOL, abs=METRIC_ATOL), (model, metric)
+    for model in ("tree", "equation"):
+        for k, want in m["fidelity"][model].items():
+            assert c.fidelity[model][k] == pytest.approx(want, rel=METRIC_RTOL, abs=METRIC_ATOL)
+        # same rows, same seed and resamples: the paired bootstrap draws the same indices
+        for k in ("value", "ci_low", "ci_high"):
+            assert c.loss[model][k] == pytest.approx(m["loss"][model][k], rel=METRIC_RTOL, abs=METRIC_ATOL)
+    # the rows come from the same population: no unseen levels, no column far off
+    assert c.drift["unseen_category_rows"] == 0
+    assert all(abs(col["smd"]) < 0.4 for col in c.drift["columns"] if col["kind"] == "numeric")
+
+
+def test_parquet_rows_give_the_same_numbers(fitted, tmp_path):
+    from pocketforest.compare import compare
+    bundle, csv, _ = fitted["regression"]
+    pq = tmp_path / "rows.parquet"
+    pd.read_csv(csv).to_parquet(pq, index=False)
+    a, b = compare(bundle, csv).to_dict(), compare(bundle, pq).to_dict()
+    for model in ("forest", "tree", "equation"):
+        assert a["evaluation"][model] == pytest.approx(b["evaluation"][model], rel=1e-12)
+    assert a["drift"]["share_outside_envelope"] == b["drift"]["share_outside_envelope"]
+
+
+def test_manifest_records_training_profile(fitted):
+    bundle, _, r = fitted["regression"]
+    m = _manifest(bundle)
+    disc = r.table.data.iloc[r.splits.discovery]
+    for f in m["features"]:
+        if f["kind"] == "numeric":
+            assert f["mean"] == pytest.approx(float(disc[f["name"]].mean()))  # pandas skips NaN
+            assert f["sd"] == pytest.approx(float(disc[f["name"]].std(ddof=1)))
+        else:
+            present = disc[f["name"]][disc[f["name"]] != ""]
+            assert sum(f["shares"].values()) == pytest.approx(1.0)
+            for level, share in f["shares"].items():
+                assert share == pytest.approx(float((present == level).mean()))
+
+
+def test_drift_is_measured(fitted, tmp_path):
+    """Constructed shift: x1 moved by one training sd, a colour never seen, a third of rows past x2's max."""
+    from pocketforest.compare import compare
+    bundle, csv, _ = fitted["regression"]
+    m = _manifest(bundle)
+    feat = {f["name"]: f for f in m["features"]}
+    rows = pd.read_csv(csv)
+    rows["x1"] = rows["x1"] + feat["x1"]["sd"]
+    rows.loc[rows.index[:10], "colour"] = "purple"
+    third = rows.index[: len(rows) // 3]
+    rows.loc[third, "x2"] = feat["x2"]["max"] + 1.0
+    path = tmp_path / "shifted.csv"
+    rows.to_csv(path, index=False)
+    c = compare(bundle, path)
+    cols = {col["name"]: col for col in c.drift["columns"]}
+    # SMD of a shift by one training sd is about 1 (pooled sd ≈ training sd)
+    assert 0.7 < cols["x1"]["smd"] < 1.3 and cols["x1"]["flag"]
+    assert cols["colour"]["unseen_levels"] == ["purple"] and cols["colour"]["unseen_rows"] == 10
+    assert c.drift["unseen_category_rows"] == 10
+    assert cols["x2"]["outside_range"] == pytest.approx(len(third) / len(rows))
+    assert c.drift["share_outside_envelope"] >= len(third) / len(rows)
+    d = c.to_dict()
+    json.dumps(d)  # JSON-safe
+
+
+def test_cli_text_json_out_and_thresholds(fitted, tmp_path, capsys):
+    from pocketforest.cli import main
+    bundle, csv, _ = fitted["regression"]
+    out = tmp_path / "found.json"
+    assert main(["compare", str(bundle), str(csv), "--json", "--out", str(out)]) == 0
+    printed = json.loads(capsys.readouterr().out)
+    assert json.loads(out.read_text()) == printed
+    assert main(["compare", str(bundle), str(csv)]) == 0
+    text = capsys.readouterr().out
+    for model in ("tree", "equation"):
+        lo = printed["loss"][model]
+        assert f"{lo['value']:+.4f}" in text and f"{lo['ci_low']:+.4f}" in text
+    assert f"{printed['evaluation']['forest']['r2']:.4f}" in text
+    assert main(["compare", str(bundle), str(csv), "--max-loss", "10", "--max-outside", "1"]) == 0
+    # exit 1 as a user sees it: a loss above the threshold (any real loss exceeds -1)
+    worse = run_cli("compare", str(bundle), str(csv), "--max-loss", "-1")
+    assert worse.returncode == 1 and "CHECK FAILED" in worse.stdout
+
+
+@pytest.mark.parametrize("mutate, expect", [
+    (lambda df: df.drop(columns="y"), "no column 'y'"),
+    (lambda df: df.assign(y="high"), "must be numeric"),
+    (lambda df: df.drop(columns="x2"), "missing column"),
+    (lambda df: df, "--out"),
+])
+def test_bad_input_is_one_error_line(fitted, tmp_path, capsys, mutate, expect):
+    from pocketforest.cli import main
+    bundle, csv, _ = fitted["regression"]
+    path = tmp_path / "bad.csv"
+    mutate(pd.read_csv(csv)).to_csv(path, index=False)
+    out = tmp_path / ("never.json" if expect != "--out" else "never.txt")
+    assert main(["compare", str(bundle), str(path), "--out", str(out)]) == 2
+    lines = capsys.readouterr().err.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("error:") and expect in lines[0], lines
+    assert not out.exists()
+
+
+def test_unknown_class_rows_are_left_out_and_counted(fitted, tmp_path):
+    from pocketforest.compare import compare
+    bundle, csv, _ = fitted["multiclass"]
+    rows = pd.read_csv(csv)
+    rows.loc[rows.index[:5], "y"] = "enormous"
+    path = tmp_path / "odd.csv"
+    rows.to_csv(path, index=False)
+    c = compare(bundle, path)
+    assert c.rows_unknown_class == 5 and c.rows == len(rows) - 5
