@@ -143,3 +143,19 @@ def test_chunk_size_does_not_change_predictions(bundles, tmp_path, chunk):
     got = pd.read_csv(tmp_path / "p.csv")
     want = Scorer(bundles["binary"], "tree").columns(data)
     assert list(got["label"]) == list(want["label"])
+
+
+def test_tuned_sessions_give_the_same_predictions(bundles):
+    """runtime.make_session (for the benchmark): thread settings change speed, never results."""
+    from pocketforest.runtime import feeds, make_session
+    bundle = bundles["multiclass"]
+    manifest = json.loads((bundle / "manifest.json").read_text())
+    rows = _new_rows(n=40)
+    fd = feeds(rows, manifest["features"])
+    outs = [make_session(bundle / "forest.onnx", **kw).run(None, fd)[1]
+            for kw in ({}, {"latency": True}, {"threads": 2})]
+    one_by_one = np.vstack([make_session(bundle / "forest.onnx", latency=True).run(
+        None, {k: v[i:i + 1] for k, v in fd.items()})[1] for i in range(3)])
+    np.testing.assert_array_equal(outs[0], outs[1])
+    np.testing.assert_array_equal(outs[0], outs[2])
+    np.testing.assert_allclose(one_by_one, outs[0][:3], rtol=1e-6)
