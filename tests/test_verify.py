@@ -19,12 +19,22 @@ from conftest import SRC
 NODE = shutil.which("node")
 
 
+_CLI = ("import sys\n"
+        "from pocketforest.cli import main\n"
+        "rc = main(['verify', sys.argv[1]])\n"
+        "leaked = sorted({m.split('.')[0] for m in sys.modules} & {'sklearn', 'statsmodels', 'patsy', 'skl2onnx'})\n"
+        "print('fitting libraries imported:', leaked, file=sys.stderr)\n"
+        "sys.exit(rc)\n")
+
+
 def _verify(bundle: Path, env_extra: dict | None = None, path: str | None = None) -> subprocess.CompletedProcess:
+    """The verify command in a new interpreter; it must not import any fitting library."""
     env = dict(os.environ, PYTHONPATH=str(SRC), **(env_extra or {}))
     if path is not None:
         env["PATH"] = path
-    return subprocess.run([sys.executable, "-m", "pocketforest", "verify", str(bundle)], capture_output=True,
-                          text=True, env=env, timeout=600)
+    r = subprocess.run([sys.executable, "-c", _CLI, str(bundle)], capture_output=True, text=True, env=env, timeout=600)
+    assert "fitting libraries imported: []" in r.stderr, r.stderr
+    return r
 
 
 def _edit(bundle: Path, name: str, change) -> None:
