@@ -133,6 +133,7 @@ def test_data_reaches_code_only_as_literals(hostile_bundle):
     assert "'''); DROP TABLE input_rows; --'" in sql      # a string, its quote doubled
 
 
+@pytest.mark.parametrize("hostile_bundle", ["regression"], indirect=True)
 def test_tampered_code_file_is_refused(hostile_bundle, tmp_path):
     _, bundle, _ = hostile_bundle
     copy = tmp_path / "b"
@@ -144,6 +145,7 @@ def test_tampered_code_file_is_refused(hostile_bundle, tmp_path):
     assert not (tmp_path / "PWNED_tamper").exists()
 
 
+@pytest.mark.parametrize("hostile_bundle", ["regression"], indirect=True)
 def test_manifest_naming_a_code_file_outside_the_bundle_is_refused(hostile_bundle, tmp_path):
     _, bundle, _ = hostile_bundle
     copy = tmp_path / "b"
