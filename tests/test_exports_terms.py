@@ -139,3 +139,14 @@ def test_node_is_present_on_this_machine():
     if not HAVE_NODE:
         pytest.skip("Node.js is not installed here, so the JavaScript forms were not run")
     assert runners.node_executable()
+
+
+def test_extreme_scores_give_probabilities_not_errors(tmp_path):
+    """Rows far outside the training range drive the scores past exp's range (about 709):
+    every form still returns probabilities (0 or 1), as numpy does."""
+    eq, table = _fit([Term("linear", ["x1"]), Term("categorical", ["colour"])], task="classification", k=3)
+    rows = _fresh_rows().head(6).copy()
+    rows["x1"] = [-1e6, -1e4, -1.0, 1.0, 1e4, 1e6]
+    want = eq.predict(rows)
+    for form, res in _code_outputs(eq, table, rows, tmp_path).items():
+        np.testing.assert_allclose(res["probabilities"], want, atol=1e-12, err_msg=form)

@@ -76,7 +76,10 @@ def _log(v):
 
 
 def _exp(v):
-    return math.exp(v) if v < 709.0 else float("inf")
+    try:
+        return math.exp(v)
+    except OverflowError:  # numpy and JavaScript give infinity here
+        return float("inf")
 
 
 def _probabilities(etas):
