@@ -189,15 +189,28 @@ def test_latex_escapes_every_special_character():
         assert f"\\{ch}" in out
     assert "\n" not in out and r"\textbackslash{}" in out
     stripped = out
-    for esc in (r"\textbackslash{}", r"\textasciicircum{}", r"\textasciitilde{}", r"\{", r"\}", r"\$", r"\&",
+    for esc in (r"\textquotesingle{}", r"\textasciigrave{}", r"\textbackslash{}", r"\textasciicircum{}", r"\textasciitilde{}", r"\{", r"\}", r"\$", r"\&",
                 r"\#", r"\_", r"\%"):
         stripped = stripped.replace(esc, "")
     assert not set(stripped) & set("\\{}$&#_%^~")
 
 
-def test_equation_tex_is_a_standalone_document(small_run):
+def test_equation_tex_is_a_standalone_document(small_run, tmp_path):
     from pathlib import Path
     _, path = small_run
     tex = (Path(path) / "equation.tex").read_text()
     assert tex.startswith(r"\documentclass") and tex.rstrip().endswith(r"\end{document}")
     assert tex.count(r"\begin{align*}") == tex.count(r"\end{align*}") >= 1
+    typeset(Path(path) / "equation.tex", tmp_path)
+
+
+def typeset(tex: "Path", workdir: "Path") -> None:
+    """Compile with pdfLaTeX where a TeX system is installed (the file must typeset, not just look right)."""
+    import subprocess
+    exe = shutil.which("pdflatex")
+    if exe is None:
+        pytest.skip("pdflatex is not installed, so equation.tex was not typeset")
+    shutil.copy(tex, workdir / "equation.tex")
+    r = subprocess.run([exe, "-interaction=nonstopmode", "-halt-on-error", "-no-shell-escape", "equation.tex"],
+                       cwd=workdir, capture_output=True, text=True, timeout=120)
+    assert r.returncode == 0 and (workdir / "equation.pdf").is_file(), r.stdout[-2000:]

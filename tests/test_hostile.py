@@ -120,6 +120,11 @@ def test_nothing_in_the_exports_executes(hostile_bundle, tmp_path):
     assert not list(base.glob("PWNED*")) and not list(Path.cwd().glob("PWNED*"))
 
 
+def test_equation_tex_typesets(hostile_bundle, tmp_path):
+    from test_exports import typeset
+    typeset(hostile_bundle[1] / "equation.tex", tmp_path)
+
+
 def test_data_reaches_code_only_as_literals(hostile_bundle):
     base, bundle, _ = hostile_bundle
     for name in ("equation.js", "tree.js"):

@@ -1,4 +1,5 @@
-"""LaTeX export of the equation: a small standalone document (amsmath) a person can typeset.
+"""LaTeX export of the equation: a small standalone document (amsmath) a person can typeset
+with pdfLaTeX, XeLaTeX or LuaLaTeX.
 
 Column names and levels are set in ``\\text{...}`` with every LaTeX special character escaped, so
 a name can never open a command or leave math mode.
@@ -11,7 +12,9 @@ from .dialect import Dialect, Inputs, print_expr
 
 _SPECIAL = {"\\": r"\textbackslash{}", "{": r"\{", "}": r"\}", "$": r"\$", "&": r"\&", "#": r"\#",
             "_": r"\_", "%": r"\%", "^": r"\textasciicircum{}", "~": r"\textasciitilde{}",
-            "\n": " ", "\r": " ", "\t": " "}
+            "\n": " ", "\r": " ", "\t": " ",
+            # ligatures would turn -- into a dash and '' or `` into curly quotes
+            "-": "-{}", "'": r"\textquotesingle{}", "`": r"\textasciigrave{}"}
 
 
 def tex_escape(value: str) -> str:
@@ -58,7 +61,8 @@ def equation_tex(eq, meta: dict) -> str:
     design = [print_expr(c.node, TEX, inputs) for c in eq.columns]
     coef = np.asarray(eq.coef, dtype=float)
     blocks = [(None, coef)] if coef.ndim == 1 else [(eq.classes[k + 1], coef[:, k]) for k in range(coef.shape[1])]
-    out = [r"\documentclass{article}", r"\usepackage[utf8]{inputenc}", r"\usepackage{amsmath}",
+    out = [r"\documentclass{article}", r"\usepackage{amsmath}", r"\usepackage{iftex}", r"\ifPDFTeX",
+           r"\usepackage[utf8]{inputenc}", r"\usepackage[T1]{fontenc}", "@UNICODE@", r"\fi",
            r"\begin{document}",
            rf"\section*{{Equation for {tex_text(eq.target)}}}",
            rf"{eq.family.capitalize()} family, {eq.link} link, fitted on the {tex_escape(eq.fit_on)} rows "
@@ -85,7 +89,16 @@ def equation_tex(eq, meta: dict) -> str:
         out.append(r"\noindent Missing numbers take these values: " +
                    "; ".join(f"{tex_text(f)} $= {tex_number(v)}$" for f, v in fills) + ".")
     out.append(r"\end{document}")
-    return "\n".join(out) + "\n"
+    text = "\n".join(out) + "\n"
+    return text.replace("@UNICODE@", _pdftex_fallbacks(text))
+
+
+def _pdftex_fallbacks(text: str) -> str:
+    """pdfLaTeX stops at a character its fonts lack (CJK, emoji, ...): show those as their code
+    point there; XeLaTeX and LuaLaTeX get the characters themselves."""
+    lines = [f"\\DeclareUnicodeCharacter{{{ord(ch):04X}}}{{\\texttt{{<U+{ord(ch):04X}>}}}}"
+             for ch in sorted(set(text)) if ord(ch) > 0x24F]
+    return "\n".join(lines) if lines else "%"
 
 
 __all__ = ["equation_tex", "tex_escape"]
