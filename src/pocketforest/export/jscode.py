@@ -149,7 +149,10 @@ def tree_js(nodes: list[TreeNode], meta: dict) -> str:
     order = sorted(leaves, key=leaves.get)
     lines = _header("tree", meta)
     if meta["task"] == "regression":
-        lines.append("var _LEAVES = [" + ", ".join(num_literal(nodes[i].value[0]) for i in order) + "];")
+        values = [num_literal(nodes[i].value[0]) for i in order]
+        lines.append("var _LEAVES = [")
+        lines += ["  " + " ".join(v + "," for v in values[k:k + 4]) for k in range(0, len(values), 4)]
+        lines.append("];")
     else:
         lines.append("var _LEAVES = [")
         lines += ["  [" + ", ".join(num_literal(p) for p in nodes[i].value) + "]," for i in order]

@@ -20,9 +20,7 @@ PY = Dialect(number=plain_number, text=py_str,
              is_level=lambda var, lit: f"(1.0 if {var} == {lit} else 0.0)",
              square=lambda a: f"_sq({a})", pos=lambda a: f"_pos({a})", log=lambda a: f"_log({a})")
 
-_HELPERS = '''import math
-
-_MISSING_TEXT = frozenset({"", "NA", "N/A", "NaN", "nan", "null", "NULL", "None"})
+_HELPERS = '''_MISSING_TEXT = frozenset({"", "NA", "N/A", "NaN", "nan", "null", "NULL", "None"})
 
 
 def _value(row, name):
@@ -102,10 +100,13 @@ def _header(kind: str, meta: dict) -> list[str]:
             "classification returns {'label': ..., 'probabilities': {class: p, ...}}.",
             "The target, task and classes are given below as data.",
             '"""',
+            "import math",
+            "",
             f"TARGET = {py_str(meta['target'])}",
             f"TASK = {py_str(meta['task'])}",
             f"CLASSES = ({''.join(py_str(c) + ', ' for c in classes)})",
             f"TOOL_VERSION = {py_str(meta['tool_version'])}",
+            "",
             _HELPERS]
 
 
@@ -161,7 +162,10 @@ def tree_py(nodes: list[TreeNode], meta: dict) -> str:
     order = sorted(leaves, key=leaves.get)
     lines = _header("tree", meta)
     if meta["task"] == "regression":
-        lines.append("_LEAVES = (" + ", ".join(num_literal(nodes[i].value[0]) for i in order) + ",)")
+        values = [num_literal(nodes[i].value[0]) for i in order]
+        lines.append("_LEAVES = (")
+        lines += ["    " + " ".join(v + "," for v in values[k:k + 4]) for k in range(0, len(values), 4)]
+        lines.append(")")
     else:
         lines.append("_LEAVES = (")
         for i in order:
