@@ -103,7 +103,31 @@ def test_javascript_export_follows_the_contract(bundles, name):
     else:
         assert all(set(v) == {"label", "probabilities"} and list(v["probabilities"]) == m["classes"] for v in out)
     text = (bundles[name] / "equation.js").read_text()
-    assert "module.exports = { predict: predict" in text and "require(" not in text
+    assert "module.exports = pocketforest_equation;" in text and "require(" not in text
+
+
+@pytest.mark.skipif(not HAVE_NODE, reason="Node.js is not installed")
+def test_equation_and_tree_js_share_one_page(bundles, tmp_path):
+    """As two <script> elements would: both files in one global scope (a fresh vm context), each
+    reachable under its own name, `predict` left as the last file's (plain JavaScript semantics)."""
+    import subprocess
+    m, ref, rows = _rows(bundles["regression"])
+    script = tmp_path / "page.js"
+    script.write_text(
+        "const fs = require('fs'), vm = require('vm');\n"
+        "const ctx = vm.createContext({});\n"
+        "for (const f of process.argv.slice(2, 4)) vm.runInContext(fs.readFileSync(f, 'utf8'), ctx);\n"
+        "const rows = JSON.parse(fs.readFileSync(0, 'utf8'));\n"
+        "const out = vm.runInContext('[pocketforest_equation, pocketforest_tree, predict]', ctx);\n"
+        "process.stdout.write(JSON.stringify(out.map((o) => rows.map((r) => (o.predict || o)(r)))));\n")
+    r = subprocess.run(["node", str(script), str(bundles["regression"] / "equation.js"),
+                        str(bundles["regression"] / "tree.js")], input=json.dumps(rows), capture_output=True,
+                       text=True, timeout=60)
+    assert r.returncode == 0, r.stderr
+    eq, tree, last = json.loads(r.stdout)
+    np.testing.assert_allclose(eq, ref["pred_equation"], rtol=1e-12)
+    np.testing.assert_allclose(tree, ref["pred_tree"], rtol=1e-12)
+    assert last == tree
 
 
 @pytest.mark.parametrize("name", ["regression", "binary"])

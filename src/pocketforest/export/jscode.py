@@ -77,9 +77,12 @@ function _result(p) {
 '''
 
 _FOOTER = '''
-if (typeof module !== "undefined" && module.exports) {
-  module.exports = { predict: predict, TARGET: TARGET, TASK: TASK, CLASSES: CLASSES };
-}
+  return {{ predict: predict, TARGET: TARGET, TASK: TASK, CLASSES: CLASSES, TOOL_VERSION: TOOL_VERSION }};
+}})();
+var predict = pocketforest_{kind}.predict;
+if (typeof module !== "undefined" && module.exports) {{
+  module.exports = pocketforest_{kind};
+}}
 '''
 
 
@@ -88,6 +91,8 @@ def _header(kind: str, meta: dict) -> list[str]:
     return ["// pocketforest " + kind + " export: call predict(row) with an object keyed by column name.",
             "// A missing value is null. Regression returns a number; classification returns",
             "// {label, probabilities: {class: p, ...}}. Target, task and classes are given below as data.",
+            f"// Defines predict and pocketforest_{kind} (so equation.js and tree.js can share one page).",
+            f"var pocketforest_{kind} = (function () {{",
             '"use strict";',
             f"var TARGET = {js_str(meta['target'])};",
             f"var TASK = {js_str(meta['task'])};",
@@ -120,7 +125,7 @@ def equation_js(eq, meta: dict) -> str:
             lines.append(f"  etas.push({e});")
         lines.append("  return _result(_probabilities(etas));")
     lines.append("}")
-    return "\n".join(lines) + "\n" + _FOOTER
+    return "\n".join(lines) + "\n" + _FOOTER.format(kind="equation")
 
 
 def tree_js(nodes: list[TreeNode], meta: dict) -> str:
@@ -160,4 +165,4 @@ def tree_js(nodes: list[TreeNode], meta: dict) -> str:
     lines += ["", "function predict(row) {"] + _bind(inputs) + ["  var leaf;"] + body
     lines.append("  return _LEAVES[leaf];" if meta["task"] == "regression" else "  return _result(_LEAVES[leaf]);")
     lines.append("}")
-    return "\n".join(lines) + "\n" + _FOOTER
+    return "\n".join(lines) + "\n" + _FOOTER.format(kind="tree")
