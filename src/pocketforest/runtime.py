@@ -30,6 +30,24 @@ def feeds(frame: pd.DataFrame, features: list[dict]) -> dict[str, np.ndarray]:
     return out
 
 
+def row_feeds(row: dict, features: list[dict]) -> dict[str, np.ndarray]:
+    """ONNX inputs for one row given as a dict keyed by column name, without pandas.
+
+    Building a DataFrame costs far more than the model itself for a single row (measured: about
+    0.7 ms of pandas work against 0.02 ms in onnxruntime for a 200-tree forest), so single-row
+    callers use this. Missing is None or NaN for numbers, None or "" for categories.
+    """
+    out = {}
+    for f in features:
+        v = row[f["name"]]
+        if f["kind"] == "numeric":
+            out[f["onnx_input"]] = np.array([[np.nan if v is None else v]], dtype=np.float32)
+        else:
+            text = "" if v is None or (isinstance(v, float) and v != v) else str(v)
+            out[f["onnx_input"]] = np.array([[text]], dtype=object)
+    return out
+
+
 def session_options(*, threads: int | None = None, latency: bool = False) -> ort.SessionOptions:
     """Session settings for scoring, measured on this project's 2-core machines.
 
@@ -89,6 +107,17 @@ class Scorer:
             return {"prediction": np.asarray(out["prediction"], dtype=np.float64).reshape(-1)}
         return {"label": np.asarray(out["label"]).astype(str).reshape(-1),
                 "probabilities": np.asarray(out["probabilities"], dtype=np.float64)}
+
+    def predict_row(self, row: dict):
+        """One row (dict keyed by column name): a number, or {"label", "probabilities"} as the
+        code exports return. Unlike :meth:`run` it does not type text the way intake does."""
+        result = self.session.run(None, row_feeds(row, self.features))
+        out = dict(zip([o.name for o in self.session.get_outputs()], result))
+        if self.task == "regression":
+            return float(np.asarray(out["prediction"]).reshape(-1)[0])
+        probs = np.asarray(out["probabilities"], dtype=np.float64).reshape(-1)
+        return {"label": str(np.asarray(out["label"]).reshape(-1)[0]),
+                "probabilities": dict(zip(self.classes, probs.tolist()))}
 
     def columns(self, frame: pd.DataFrame) -> pd.DataFrame:
         """The prediction columns `score` writes."""
