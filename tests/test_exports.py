@@ -5,6 +5,7 @@ from __future__ import annotations
 import json
 import shutil
 import sqlite3
+from pathlib import Path
 
 import numpy as np
 import onnx
@@ -159,7 +160,6 @@ def test_tree_code_agrees_with_scikit_learn_at_float32_split_boundaries(small_ru
     """scikit-learn compares float32(x) <= t; the printed trees see doubles. At each numeric split
     try t, the next float32 up, the midpoint between them (where rounding to even decides) and the
     doubles either side of it: the code forms must land in the same leaf as scikit-learn."""
-    from pathlib import Path
     r, path = small_run
     path = Path(path)
     t = r.tree.model.tree_
@@ -202,7 +202,6 @@ def test_double_split_matches_float32_rounding():
 
 
 def test_missing_column_in_a_row_is_an_error_not_a_silent_fill(small_run):
-    from pathlib import Path
     r, path = small_run
     rows = [{"x1": 0.1}]  # every other column absent
     with pytest.raises(runners.RunnerFailed, match="missing from the row"):
@@ -223,7 +222,6 @@ def test_latex_escapes_every_special_character():
 
 
 def test_equation_tex_is_a_standalone_document(small_run, tmp_path):
-    from pathlib import Path
     _, path = small_run
     tex = (Path(path) / "equation.tex").read_text()
     assert tex.startswith(r"\documentclass") and tex.rstrip().endswith(r"\end{document}")
@@ -231,7 +229,7 @@ def test_equation_tex_is_a_standalone_document(small_run, tmp_path):
     typeset(Path(path) / "equation.tex", tmp_path)
 
 
-def typeset(tex: "Path", workdir: "Path") -> None:
+def typeset(tex: Path, workdir: Path) -> None:
     """Compile with pdfLaTeX where a TeX system is installed (the file must typeset, not just look right)."""
     import subprocess
     exe = shutil.which("pdflatex")
