@@ -34,7 +34,7 @@ def test_verify_passes(bundles, name):
     from pocketforest.verify import verify_bundle
     checks = verify_bundle(bundles[name])
     assert all(c.ok for c in checks), [c.line() for c in checks]
-    assert sum("onnx" in c.form for c in checks) == 3
+    assert sum("onnxruntime, Python" in c.form for c in checks) == 3
 
 
 @pytest.mark.parametrize("name", ["regression", "binary", "multiclass"])

@@ -151,11 +151,14 @@ def _run(args: argparse.Namespace) -> int:
         return 0
     if args.command == "verify":
         from .verify import verify_bundle
-        checks = verify_bundle(args.bundle)
+        checks = verify_bundle(args.bundle, quiet=args.quiet)
         for c in checks:
             print(c.line())
         bad = [c for c in checks if not c.ok]
-        print(f"{len(checks) - len(bad)} of {len(checks)} checks passed" + ("" if not bad else ": the bundle does NOT reproduce its reference rows"))
+        skipped = sum(c.skipped for c in checks)
+        print(f"{len(checks) - len(bad) - skipped} of {len(checks)} checks passed"
+              + (f", {skipped} skipped" if skipped else "")
+              + ("" if not bad else ": the bundle does NOT reproduce its reference rows"))
         return 1 if bad else 0
     if args.command == "compare":
         from .compare import check_out, compare, write_json

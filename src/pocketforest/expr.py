@@ -106,8 +106,20 @@ def num_literal(value: float) -> str:
 
 
 def str_literal(value: str) -> str:
-    """A double-quoted string literal valid in Python and JavaScript (ASCII only, escaped)."""
-    return json.dumps(str(value), ensure_ascii=True)
+    """A double-quoted, ASCII-only Python string literal (as patsy's Q() and Treatment() read it).
+
+    Like JSON for the Basic Multilingual Plane, but a character beyond it is written as one
+    ``\\UXXXXXXXX`` escape: JSON's surrogate pair would read back in Python as two lone surrogates,
+    and a column named with an emoji would then not be found.
+    """
+    out = []
+    for ch in str(value):
+        code = ord(ch)
+        if code > 0xFFFF:
+            out.append(f"\\U{code:08x}")
+        else:
+            out.append(json.dumps(ch, ensure_ascii=True)[1:-1])
+    return '"' + "".join(out) + '"'
 
 
 def sql_string(value: str) -> str:

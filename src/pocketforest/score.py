@@ -1,22 +1,33 @@
-"""`score`: predictions from a bundle's ONNX model, streamed chunk by chunk in the input's order."""
+"""`score`: predictions from a bundle's ONNX model, streamed chunk by chunk in the input's order.
+
+Memory stays bounded by the chunk size: the input is read with :func:`intake.iter_table` (only
+the model's columns and the ``--keep`` columns), typed with :func:`intake.coerce_for_scoring`
+exactly as the training data were, scored by onnxruntime and appended to the output, which is
+written to a temporary file beside the target and renamed into place only when every row is done.
+
+This path imports neither scikit-learn nor statsmodels (the tests check ``sys.modules``).
+
+Unseen categories follow the bundle's policy (see :mod:`pocketforest.design`): the trees treat
+the value as none of the known levels, the equation as the column's reference level, and the row's
+``inputs_outside_training`` count includes it; a warning names the column and an example value.
+"""
 from __future__ import annotations
 
 import os
 import sys
 import tempfile
 from pathlib import Path
-from typing import Iterator
 
 import numpy as np
 import pandas as pd
 
 from .bundle_io import read_manifest
 from .errors import InputError
-from .intake import Feature, coerce_for_scoring
+from .intake import Feature, coerce_for_scoring, iter_table
 from .runtime import Scorer, envelope_count
 
-NA_TOKENS = ["", "NA", "N/A", "NaN", "nan", "null", "NULL", "None"]
 CHUNK_ROWS = 100_000
+OUTPUTS = ("prediction", "label", "inputs_outside_training")
 
 
 def features_of(manifest: dict) -> list[Feature]:
@@ -24,91 +35,131 @@ def features_of(manifest: dict) -> list[Feature]:
     return [Feature(**{k: f.get(k) for k in keys}) for f in manifest["features"]]
 
 
-def iter_chunks(path: str | os.PathLike, rows: int = CHUNK_ROWS) -> Iterator[pd.DataFrame]:
-    """CSV/TSV (all values as text, as intake reads them) or Parquet, a chunk at a time."""
-    p = Path(path)
-    ext = p.suffix.lower()
-    if not p.is_file():
-        raise InputError(f"data file {p} not found: check the path")
-    if ext == ".parquet":
+class _Stray:
+    """Running tally of values outside the training envelope, for one warning per column."""
+
+    def __init__(self, features: list[Feature]):
+        self.features = features
+        self.unseen: dict[str, int] = {}
+        self.examples: dict[str, list[str]] = {}
+        self.outside: dict[str, int] = {}
+
+    def add(self, typed: pd.DataFrame) -> None:
+        for f in self.features:
+            col = typed[f.name]
+            if f.kind == "categorical":
+                known = set(f.categories or []) | {""}
+                bad = ~col.isin(known)
+                if bad.any():
+                    self.unseen[f.name] = self.unseen.get(f.name, 0) + int(bad.sum())
+                    ex = self.examples.setdefault(f.name, [])
+                    for v in pd.unique(col[bad])[: 3 - len(ex)]:
+                        ex.append(str(v))
+            else:
+                x = col.to_numpy(dtype=float)
+                with np.errstate(invalid="ignore"):
+                    n = int(np.sum((x < f.min) | (x > f.max)))
+                if n:
+                    self.outside[f.name] = self.outside.get(f.name, 0) + n
+
+    def warnings(self) -> list[str]:
+        out = []
+        for name, n in self.unseen.items():
+            ex = ", ".join(repr(v) for v in self.examples.get(name, []))
+            out.append(f"column '{name}': {n} row(s) have categories never seen in training (e.g. {ex}); "
+                       "the trees treat them as none of the known levels, the equation as the reference level")
+        for name, n in self.outside.items():
+            out.append(f"column '{name}': {n} row(s) lie outside the training range; "
+                       "the equation's powers, hinges and logs are not to be trusted there")
+        return out
+
+
+def _check_out(out: str | None) -> None:
+    if out is not None and Path(out).suffix.lower() not in (".csv", ".parquet"):
+        raise InputError(f"--out {out}: write predictions to a .csv or .parquet file")
+    if out is not None and Path(out).is_dir():
+        raise InputError(f"--out {out} is a folder: give a .csv or .parquet file name")
+
+
+class _ParquetSink:
+    """Appends frames to one Parquet file with the schema fixed by the first chunk."""
+
+    def __init__(self, path: str):
+        self.path, self.writer, self.schema = path, None, None
+
+    def write(self, frame: pd.DataFrame) -> None:
+        import pyarrow as pa
         import pyarrow.parquet as pq
-        try:
-            pf = pq.ParquetFile(str(p))
-            for batch in pf.iter_batches(batch_size=rows):
-                yield batch.to_pandas()
-        except Exception as exc:  # pyarrow raises several types for damaged files
-            raise InputError(f"{p} is not a readable Parquet file ({exc}): write it again") from None
-        return
-    if ext not in (".csv", ".tsv"):
-        raise InputError(f"{p}: files ending in '{ext}' are not read; use .csv, .tsv or .parquet")
-    try:
-        reader = pd.read_csv(p, sep="\t" if ext == ".tsv" else ",", dtype=str, keep_default_na=False,
-                             na_values=NA_TOKENS, chunksize=rows, encoding="utf-8-sig", skipinitialspace=True)
-        for chunk in reader:
-            chunk.columns = [str(c).strip() for c in chunk.columns]
-            yield chunk.apply(lambda s: s.str.strip()).replace("", np.nan)
-    except UnicodeDecodeError:
-        raise InputError(f"{p} is not UTF-8 text: re-save it as UTF-8") from None
-    except pd.errors.EmptyDataError:
-        raise InputError(f"{p} is empty: it needs a header line and rows") from None
-    except pd.errors.ParserError as exc:
-        raise InputError(f"{p} could not be parsed ({str(exc).strip().splitlines()[-1]}): check its delimiters") from None
+        if self.writer is None:
+            table = pa.Table.from_pandas(frame, preserve_index=False)
+            # a --keep column that is empty in the first chunk must still take text later
+            fields = [pa.field(f.name, pa.string()) if pa.types.is_null(f.type) else f for f in table.schema]
+            self.schema = pa.schema(fields)
+            self.writer = pq.ParquetWriter(self.path, self.schema)
+        self.writer.write_table(pa.Table.from_pandas(frame, schema=self.schema, preserve_index=False))
+
+    def close(self) -> None:
+        if self.writer is not None:
+            self.writer.close()
+            self.writer = None
 
 
 def score_file(bundle: str, data: str, model: str, out: str | None, keep: list[str] | None = None,
-               quiet: bool = False) -> int:
-    """Write predictions to ``out`` (CSV or Parquet by extension) or stdout; returns rows scored."""
+               quiet: bool = False, chunk_rows: int = CHUNK_ROWS) -> int:
+    """Write predictions to ``out`` (CSV or Parquet by extension) or CSV on stdout; returns rows scored."""
     manifest = read_manifest(bundle)
     scorer = Scorer(bundle, model, manifest)
     features = features_of(manifest)
-    keep = list(keep or [])
-    if out is not None and Path(out).suffix.lower() not in (".csv", ".parquet"):
-        raise InputError(f"--out {out}: write predictions to a .csv or .parquet file")
-    tmp_path = None
-    writer = None
-    total = 0
+    keep = list(dict.fromkeys(keep or []))
+    _check_out(out)
+    names = ["prediction"] if manifest["task"] == "regression" else ["label"] + [f"prob_{c}" for c in manifest["classes"]]
+    clash = [k for k in keep if k in names + ["inputs_outside_training"]]
+    if clash:
+        raise InputError(f"--keep column '{clash[0]}' has the name of an output column: rename it in {data}")
+    stray = _Stray(features)
+    tmp_path, sink, total = None, None, 0
     try:
         if out is not None:
-            fd, tmp_path = tempfile.mkstemp(prefix=".pf-score-", suffix=Path(out).suffix,
+            fd, tmp_path = tempfile.mkstemp(prefix=".pf-score-", suffix=Path(out).suffix.lower(),
                                             dir=str(Path(out).resolve().parent))
             os.close(fd)
-        first = True
-        for chunk in iter_chunks(data):
-            missing_keep = [k for k in keep if k not in chunk.columns]
-            if missing_keep:
-                raise InputError(f"--keep column(s) {', '.join(repr(k) for k in missing_keep)} not in {data}")
-            typed = coerce_for_scoring(chunk, features, source=str(data), first_row=total)
+            if tmp_path.endswith(".parquet"):
+                sink = _ParquetSink(tmp_path)
+        wanted = [f.name for f in features] + keep
+        for first_row, chunk in iter_table(data, chunksize=chunk_rows, columns=wanted):
+            if first_row == 0:
+                absent = [k for k in keep if k not in chunk.columns]
+                if absent:
+                    raise InputError(f"{data}: --keep column(s) {', '.join(repr(k) for k in absent)} not found: "
+                                     "check the names (they are case-sensitive)")
+            typed = coerce_for_scoring(chunk, features, source=str(data), first_row=first_row)
             pred = scorer.columns(typed)
             pred["inputs_outside_training"] = envelope_count(typed, manifest["features"])
+            stray.add(typed)
             frame = pd.concat([chunk[keep].reset_index(drop=True), pred.reset_index(drop=True)], axis=1)
             if out is None:
-                frame.to_csv(sys.stdout, index=False, header=first, lineterminator="\n")
-            elif tmp_path.endswith(".parquet"):
-                import pyarrow as pa
-                import pyarrow.parquet as pq
-                table = pa.Table.from_pandas(frame, preserve_index=False)
-                if writer is None:
-                    writer = pq.ParquetWriter(tmp_path, table.schema)
-                writer.write_table(table)
+                frame.to_csv(sys.stdout, index=False, header=(first_row == 0), lineterminator="\n")
+            elif sink is not None:
+                sink.write(frame)
             else:
-                frame.to_csv(tmp_path, index=False, header=first, mode="w" if first else "a", lineterminator="\n")
+                frame.to_csv(tmp_path, index=False, header=(first_row == 0), mode="w" if first_row == 0 else "a",
+                             lineterminator="\n")
             total += len(chunk)
-            first = False
             if not quiet:
-                print(f"\rscored {total} rows", end="", file=sys.stderr, flush=True)
-        if writer is not None:
-            writer.close()
-            writer = None
-        if total == 0:
-            raise InputError(f"{data} has no rows to score")
+                print(f"\rscored {total:,} rows", end="", file=sys.stderr, flush=True)
+        if sink is not None:
+            sink.close()
         if tmp_path is not None:
             os.replace(tmp_path, out)
             tmp_path = None
     finally:
-        if writer is not None:
-            writer.close()
+        if sink is not None:
+            sink.close()
         if tmp_path is not None and os.path.exists(tmp_path):
             os.remove(tmp_path)
         if not quiet and total:
             print(file=sys.stderr)
+    if not quiet:
+        for w in stray.warnings():
+            print(f"warning: {w}", file=sys.stderr)
     return total

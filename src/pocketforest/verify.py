@@ -3,9 +3,19 @@
 Each check compares one form's predictions on ``reference.csv`` with the predictions the fitting
 libraries wrote there, and passes when the largest difference is within the form's tolerance:
 
-* regression values: |difference| <= 1e-4 * max(1, largest |reference value|) (float32 graphs);
-* probabilities: |difference| <= 1e-4;
-* labels: identical, except on rows where the reference's top two probabilities are within 1e-4.
+* ONNX graphs (float32 inside, as tree ensembles must be; Python and Node.js onnxruntime):
+  regression values |difference| <= 1e-4 * max(1, largest |reference value|); probabilities
+  |difference| <= 1e-4;
+* SQL (SQLite, DuckDB), Python and JavaScript exports compute in double precision, with tree
+  splits written so a double comparison equals scikit-learn's float32 one
+  (:func:`pocketforest.thresholds.double_split`): values within 1e-7 * max(1, largest |reference|),
+  probabilities within 1e-7 (summation order and libm differ, nothing more);
+* labels: identical, except on rows where the reference's top two probabilities are closer than
+  the form's probability tolerance.
+
+The forms run where they will live (:mod:`pocketforest.runners`): nothing from the bundle is
+imported or executed in this process. A check whose runtime is absent (no Node.js, or npm could
+not install onnxruntime-node) is reported as skipped with the reason; a skip does not fail verify.
 """
 from __future__ import annotations
 
@@ -18,10 +28,13 @@ import pandas as pd
 
 from .bundle_io import bundle_file, read_manifest, sha256
 from .errors import BundleError
+from . import runners
 from .runtime import MODELS, Scorer
 
 VALUE_RTOL = 1e-4
 PROB_ATOL = 1e-4
+CODE_RTOL = 1e-7
+CODE_PROB_ATOL = 1e-7
 
 
 @dataclass
@@ -31,9 +44,10 @@ class Check:
     max_diff: float | None
     tolerance: float | None
     detail: str = ""
+    skipped: bool = False
 
     def line(self) -> str:
-        mark = "ok  " if self.ok else "FAIL"
+        mark = "skip" if self.skipped else ("ok  " if self.ok else "FAIL")
         diff = "" if self.max_diff is None else f"  max diff {self.max_diff:.3g} (tolerance {self.tolerance:.3g})"
         return f"{mark}  {self.form}{diff}{('  ' + self.detail) if self.detail else ''}"
 
@@ -48,26 +62,36 @@ def read_reference(bundle: str | Path, manifest: dict) -> pd.DataFrame:
     return frame
 
 
+def _max_diff(have: np.ndarray, want: np.ndarray) -> float:
+    """Largest |difference|; a NaN or a wrong shape counts as an infinite difference."""
+    have, want = np.asarray(have, dtype=float), np.asarray(want, dtype=float)
+    if have.shape != want.shape:
+        return float("inf")
+    d = np.abs(have - want)
+    return float("inf") if np.isnan(d).any() else float(np.max(d, initial=0.0))
+
+
 def compare_predictions(form: str, manifest: dict, ref: pd.DataFrame, model: str,
-                        got: dict[str, np.ndarray]) -> Check:
+                        got: dict[str, np.ndarray], *, rtol: float = VALUE_RTOL,
+                        prob_atol: float = PROB_ATOL) -> Check:
     """Compare one form's output (``prediction`` or ``label``/``probabilities``) with reference.csv."""
     if manifest["task"] == "regression":
         want = ref[f"pred_{model}"].to_numpy(dtype=float)
         have = np.asarray(got["prediction"], dtype=float).reshape(-1)
-        tol = VALUE_RTOL * max(1.0, float(np.max(np.abs(want))))
-        diff = float(np.max(np.abs(have - want)))
+        tol = rtol * max(1.0, float(np.max(np.abs(want))))
+        diff = _max_diff(have, want)
         return Check(form, bool(diff <= tol), diff, tol)
     classes = manifest["classes"]
     want_p = ref[[f"prob_{model}_{c}" for c in classes]].to_numpy(dtype=float)
     have_p = np.asarray(got["probabilities"], dtype=float)
-    diff = float(np.max(np.abs(have_p - want_p)))
+    diff = _max_diff(have_p, want_p)
     top2 = np.sort(want_p, axis=1)[:, -2:]
-    clear = (top2[:, 1] - top2[:, 0]) > PROB_ATOL
+    clear = (top2[:, 1] - top2[:, 0]) > prob_atol
     want_l = ref[f"label_{model}"].astype(str).to_numpy()
-    have_l = np.asarray(got["label"]).astype(str)
-    bad = int(np.sum((want_l != have_l) & clear))
+    have_l = np.asarray(got["label"]).astype(str).reshape(-1)
+    bad = int(np.sum((want_l != have_l) & clear)) if have_l.shape == want_l.shape else len(want_l)
     detail = f"{bad} label(s) differ" if bad else ""
-    return Check(form, bool(diff <= PROB_ATOL and bad == 0), diff, PROB_ATOL, detail)
+    return Check(form, bool(diff <= prob_atol and bad == 0), diff, prob_atol, detail)
 
 
 def _checksums(bundle: str | Path, manifest: dict) -> Check:
@@ -90,17 +114,73 @@ def _onnx_checks(bundle, manifest, ref) -> list[Check]:
     return out
 
 
-# Further forms (SQL, generated code, other runtimes) register here: (name, function).
+def _node_onnx_checks(bundle, manifest, ref, quiet: bool = False) -> list[Check]:
+    forms = [f"{m}.onnx (onnxruntime-node, Node.js)" for m in MODELS]
+    try:
+        paths = {m: bundle_file(bundle, manifest, f"{m}.onnx") for m in MODELS}
+        raw = runners.run_onnx_node(paths, ref, manifest["features"], quiet=quiet)
+    except runners.RunnerUnavailable as exc:
+        return [Check(f, True, None, None, f"skipped: {exc}", skipped=True) for f in forms]
+    except runners.RunnerFailed as exc:
+        return [Check(f, False, None, None, str(exc)) for f in forms]
+    out = []
+    for model, form in zip(MODELS, forms):
+        res = raw[model]
+        if manifest["task"] == "regression":
+            got = {"prediction": np.asarray(res["prediction"], dtype=float).reshape(-1)}
+        else:
+            got = {"label": np.asarray(res["label"]).astype(str).reshape(-1),
+                   "probabilities": np.asarray(res["probabilities"], dtype=float)}
+        out.append(compare_predictions(form, manifest, ref, model, got))
+    return out
+
+
+def _code_check(form: str, bundle, manifest, ref, model: str, file: str, run) -> Check:
+    """Run one code export with ``run(path) -> predictions`` and compare (double tolerances)."""
+    if file not in manifest.get("artifacts", {}):
+        return Check(form, False, None, None, f"{file} is not in this bundle")
+    try:
+        got = run(bundle_file(bundle, manifest, file))
+    except runners.RunnerUnavailable as exc:
+        return Check(form, True, None, None, f"skipped: {exc}", skipped=True)
+    except runners.RunnerFailed as exc:
+        return Check(form, False, None, None, str(exc))
+    return compare_predictions(form, manifest, ref, model, got, rtol=CODE_RTOL, prob_atol=CODE_PROB_ATOL)
+
+
+def _code_checks(bundle, manifest, ref) -> list[Check]:
+    task, classes, features = manifest["task"], manifest.get("classes"), manifest["features"]
+    rows = runners.json_rows(ref, features)
+    out = []
+    for model in ("equation", "tree"):
+        sql = f"{model}.sql"
+        for engine, label in (("sqlite", "SQLite"), ("duckdb", "DuckDB")):
+            out.append(_code_check(f"{sql} ({label})", bundle, manifest, ref, model, sql,
+                                   lambda p, e=engine: runners.sql_predictions(
+                                       runners.run_sql(e, p.read_text(encoding="utf-8"), ref, features), task, classes)))
+    for model in ("equation", "tree"):
+        out.append(_code_check(f"{model}.py (Python, separate isolated interpreter)", bundle, manifest, ref, model,
+                               f"{model}.py",
+                               lambda p: runners.collect(runners.run_python_export(p, rows), task, classes)))
+    for model in ("equation", "tree"):
+        out.append(_code_check(f"{model}.js (Node.js)", bundle, manifest, ref, model, f"{model}.js",
+                               lambda p: runners.collect(runners.run_js_export(p, rows), task, classes)))
+    return out
+
+
+# Further forms (other runtimes) register here: functions (bundle, manifest, reference) -> [Check].
 EXTRA_CHECKS: list[Callable[[str | Path, dict, pd.DataFrame], list[Check]]] = []
 
 
-def verify_bundle(bundle: str | Path) -> list[Check]:
+def verify_bundle(bundle: str | Path, *, quiet: bool = False) -> list[Check]:
     manifest = read_manifest(bundle)
     checks = [_checksums(bundle, manifest)]
     if not checks[0].ok:
         return checks
     ref = read_reference(bundle, manifest)
     checks += _onnx_checks(bundle, manifest, ref)
+    checks += _node_onnx_checks(bundle, manifest, ref, quiet=quiet)
+    checks += _code_checks(bundle, manifest, ref)
     for extra in EXTRA_CHECKS:
         checks += extra(bundle, manifest, ref)
     return checks

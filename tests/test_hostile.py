@@ -1,0 +1,162 @@
+"""Hostile column names, category values and class labels: every export still runs and matches,
+and nothing in them executes.
+
+The data are invented; what they must exercise is the quoting rules of each target language
+(SQL: ISO double-quoted identifiers and single-quoted strings with the quote doubled; Python and
+JavaScript string literals; HTML's ``</script>``), which is common practice for code generators.
+"""
+from __future__ import annotations
+
+import json
+import shutil
+import sqlite3
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from pocketforest import runners
+from pocketforest.intake import load
+from pocketforest.pipeline import Settings, distill
+
+from conftest import run_cli
+
+HAVE_NODE = shutil.which("node") is not None
+
+HOSTILE_NAMES = [
+    'he said "hi" and \'bye\'',
+    "back\\slash; -- drop table input_rows",
+    "select",
+    "1st value",
+    "Größe (m²) 数 🌱",
+    "L" * 300,
+    "</script><script>alert(1)</script>",
+    "two\nlines",
+]
+
+
+def _values(marker: Path) -> tuple[list[str], list[str]]:
+    """Category values that would do something visible if any export ever ran them as code."""
+    return ([
+        "'); DROP TABLE input_rows; --",
+        f"__import__('os').system('touch {marker}_py')",
+        f"\"); require('fs').writeFileSync('{marker}_js', 'x'); (\"",
+        'say "x"\\n \\u0041',
+        "Ünïcode 値 🙂",
+    ], ["</script>", "a;b", "${x}`y`", "plain", "drop table input_rows"])
+
+
+def _hostile_csv(path: Path, marker: Path, task: str) -> str:
+    rng = np.random.default_rng(5)
+    n = 360
+    lv1, lv2 = (np.array(v) for v in _values(marker))
+    cols = {name: rng.uniform(0, 1, n) for name in HOSTILE_NAMES}
+    k1, k2 = rng.choice(lv1, n), rng.choice(lv2, n)
+    x = cols[HOSTILE_NAMES[0]]
+    f = 3 * x + 2 * (cols[HOSTILE_NAMES[1]] > 0.5) + np.where(k1 == lv1[0], 1.5, 0) + np.where(k2 == lv2[0], -1, 0)
+    df = pd.DataFrame({**cols, "drop table": k1, "x'); DROP TABLE input_rows; --": k2})
+    df.loc[rng.choice(n, 20, replace=False), HOSTILE_NAMES[0]] = np.nan
+    df.loc[rng.choice(n, 20, replace=False), "drop table"] = np.nan
+    target = 'out "y"; --'
+    if task == "regression":
+        df[target] = f + rng.normal(0, 0.3, n)
+    else:
+        labels = np.array(["it's", 'say "no"', "</script>"])
+        cut = np.quantile(f, [1 / 3, 2 / 3])
+        df[target] = labels[np.searchsorted(cut, f + rng.normal(0, 0.3, n))]
+    df.to_csv(path, index=False)
+    return target
+
+
+@pytest.fixture(scope="module", params=["regression", "classification"])
+def hostile_bundle(request, tmp_path_factory):
+    base = tmp_path_factory.mktemp(f"hostile_{request.param}")
+    marker = base / "PWNED"
+    target = _hostile_csv(base / "hostile data.csv", marker, request.param)
+    # the file goes through the same reader as `distill`; a small bootstrap keeps the test quick
+    table = load(base / "hostile data.csv", target)
+    distill(table, Settings(trees=30, seed=0, quiet=True, bootstrap=50)).write(base / "bundle")
+    return base, base / "bundle", marker
+
+
+def test_verify_runs_and_matches_every_form(hostile_bundle):
+    base, bundle, marker = hostile_bundle
+    r = run_cli("verify", str(bundle), cwd=base)
+    assert r.returncode == 0, r.stdout + r.stderr
+    lines = [ln for ln in r.stdout.splitlines() if ln[:4] in ("ok  ", "FAIL", "skip")]
+    assert len(lines) == 15
+    if HAVE_NODE:
+        assert all(ln.startswith("ok") for ln in lines), r.stdout
+    manifest = json.loads((bundle / "manifest.json").read_text(encoding="utf-8"))
+    names = {f["name"] for f in manifest["features"]}
+    assert set(HOSTILE_NAMES) <= names  # none was dropped or renamed on the way
+    assert not list(base.glob("PWNED*")) and not Path("PWNED_py").exists()
+
+
+def test_nothing_in_the_exports_executes(hostile_bundle, tmp_path):
+    """Rows carrying the hostile values themselves go through every code form; no file appears,
+    the SQL leaves its table intact."""
+    base, bundle, marker = hostile_bundle
+    manifest = json.loads((bundle / "manifest.json").read_text(encoding="utf-8"))
+    feats = manifest["features"]
+    lv1, lv2 = _values(marker)
+    rows = pd.DataFrame([{f["name"]: (0.5 if f["kind"] == "numeric" else v) for f in feats}
+                         for v in lv1 + lv2 + ["'; DELETE FROM input_rows; SELECT '"]])
+    json_rows = runners.json_rows(rows, feats)
+    for model in ("equation", "tree"):
+        runners.run_python_export(bundle / f"{model}.py", json_rows)
+        if HAVE_NODE:
+            runners.run_js_export(bundle / f"{model}.js", json_rows)
+        con = sqlite3.connect(":memory:")
+        con.execute("CREATE TABLE input_rows (" + ", ".join('"' + f["name"].replace('"', '""') + '"' for f in feats) + ")")
+        con.executemany("INSERT INTO input_rows VALUES (" + ",".join("?" * len(feats)) + ")",
+                        [tuple(r[f["name"]] for f in feats) for r in json_rows])
+        out = con.execute((bundle / f"{model}.sql").read_text(encoding="utf-8")).fetchall()
+        assert len(out) == len(rows)
+        assert con.execute("SELECT COUNT(*) FROM input_rows").fetchone()[0] == len(rows)
+        for engine in ("sqlite", "duckdb"):  # run_sql also checks the table afterwards
+            assert len(runners.run_sql(engine, (bundle / f"{model}.sql").read_text(encoding="utf-8"), rows, feats)) == len(rows)
+    assert not list(base.glob("PWNED*")) and not list(Path.cwd().glob("PWNED*"))
+
+
+def test_equation_tex_typesets(hostile_bundle, tmp_path):
+    from test_exports import typeset
+    typeset(hostile_bundle[1] / "equation.tex", tmp_path)
+
+
+def test_data_reaches_code_only_as_literals(hostile_bundle):
+    base, bundle, _ = hostile_bundle
+    for name in ("equation.js", "tree.js"):
+        assert "</script" not in (bundle / name).read_text(encoding="utf-8").lower()
+    for name in ("equation.py", "tree.py", "equation.js", "tree.js"):
+        text = (bundle / name).read_text(encoding="utf-8")
+        assert text.isascii(), name                       # every non-ASCII character escaped
+        assert "two\nlines" not in text                   # a newline in a name cannot end a literal
+    sql = (bundle / "equation.sql").read_text(encoding="utf-8")
+    assert '"x\'); DROP TABLE input_rows; --"' in sql     # an identifier, quoted
+    assert "'''); DROP TABLE input_rows; --'" in sql      # a string, its quote doubled
+
+
+@pytest.mark.parametrize("hostile_bundle", ["regression"], indirect=True)
+def test_tampered_code_file_is_refused(hostile_bundle, tmp_path):
+    _, bundle, _ = hostile_bundle
+    copy = tmp_path / "b"
+    shutil.copytree(bundle, copy)
+    with open(copy / "tree.py", "a", encoding="utf-8") as fh:
+        fh.write("\nimport os\nos.system('touch PWNED_tamper')\n")
+    r = run_cli("verify", str(copy), cwd=tmp_path)
+    assert r.returncode == 1 and "tree.py altered" in r.stdout
+    assert not (tmp_path / "PWNED_tamper").exists()
+
+
+@pytest.mark.parametrize("hostile_bundle", ["regression"], indirect=True)
+def test_manifest_naming_a_code_file_outside_the_bundle_is_refused(hostile_bundle, tmp_path):
+    _, bundle, _ = hostile_bundle
+    copy = tmp_path / "b"
+    shutil.copytree(bundle, copy)
+    m = json.loads((copy / "manifest.json").read_text(encoding="utf-8"))
+    m["artifacts"]["../equation.py"] = m["artifacts"].pop("equation.py")
+    (copy / "manifest.json").write_text(json.dumps(m), encoding="utf-8")
+    r = run_cli("verify", str(copy), cwd=tmp_path)
+    assert r.returncode == 2 and r.stderr.startswith("error:") and "outside the bundle" in r.stderr

@@ -1,0 +1,138 @@
+"""`verify` really runs each form and notices when one is wrong; absent runtimes are skipped
+with a clear reason, never silently."""
+from __future__ import annotations
+
+import json
+import os
+import shutil
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from pocketforest import verify
+from pocketforest.bundle_io import sha256
+
+from conftest import SRC
+
+NODE = shutil.which("node")
+
+
+_CLI = ("import sys\n"
+        "from pocketforest.cli import main\n"
+        "rc = main(['verify', sys.argv[1]])\n"
+        "leaked = sorted({m.split('.')[0] for m in sys.modules} & {'sklearn', 'statsmodels', 'patsy', 'skl2onnx'})\n"
+        "print('fitting libraries imported:', leaked, file=sys.stderr)\n"
+        "sys.exit(rc)\n")
+
+
+def _verify(bundle: Path, env_extra: dict | None = None, path: str | None = None) -> subprocess.CompletedProcess:
+    """The verify command in a new interpreter; it must not import any fitting library."""
+    env = dict(os.environ, PYTHONPATH=str(SRC), **(env_extra or {}))
+    if path is not None:
+        env["PATH"] = path
+    r = subprocess.run([sys.executable, "-c", _CLI, str(bundle)], capture_output=True, text=True, env=env, timeout=600)
+    assert "fitting libraries imported: []" in r.stderr, r.stderr
+    return r
+
+
+def _edit(bundle: Path, name: str, change) -> None:
+    """Change one artifact and re-sign it in the manifest, so only the parity checks can notice."""
+    p = bundle / name
+    p.write_text(change(p.read_text(encoding="utf-8")), encoding="utf-8")
+    m = json.loads((bundle / "manifest.json").read_text(encoding="utf-8"))
+    m["artifacts"][name] = sha256(p)
+    m["artifact_sizes"][name] = p.stat().st_size
+    (bundle / "manifest.json").write_text(json.dumps(m), encoding="utf-8")
+
+
+def _lines(stdout: str, form: str) -> list[str]:
+    return [ln for ln in stdout.splitlines() if form in ln]
+
+
+def _verify_here(bundle: Path, monkeypatch, env_extra: dict | None = None, path: str | None = None) -> str:
+    """verify in this process (quicker than a new interpreter); the lines the CLI would print."""
+    for k, v in (env_extra or {}).items():
+        monkeypatch.setenv(k, v)
+    if path is not None:
+        monkeypatch.setenv("PATH", path)
+    checks = verify.verify_bundle(bundle)
+    return "\n".join(c.line() for c in checks)
+
+
+@pytest.fixture
+def copy(bundles, tmp_path):
+    dst = tmp_path / "b"
+    shutil.copytree(bundles["regression"], dst)
+    return dst
+
+
+def test_wrong_code_forms_fail_even_with_matching_checksums(copy):
+    _edit(copy, "equation.py", lambda t: t + "\n_orig = predict\n\n\ndef predict(row):\n    return _orig(row) + 1e-3\n")
+    _edit(copy, "tree.sql", lambda t: t.replace(') AS "prediction"', ') + 1e-3 AS "prediction"'))
+    if NODE:
+        _edit(copy, "tree.js", lambda t: t + "\nvar _o = predict;\nmodule.exports = { predict: function (r) { return _o(r) * 1.001; } };\n")
+    r = _verify(copy)
+    assert r.returncode == 1, r.stdout
+    assert _lines(r.stdout, "equation.py")[0].startswith("FAIL")
+    assert all(ln.startswith("FAIL") for ln in _lines(r.stdout, "tree.sql"))
+    assert _lines(r.stdout, "tree.py")[0].startswith("ok")
+    if NODE:
+        assert _lines(r.stdout, "tree.js")[0].startswith("FAIL")
+        assert _lines(r.stdout, "equation.js")[0].startswith("ok")
+
+
+def test_sql_with_a_second_statement_is_not_run(copy, monkeypatch):
+    _edit(copy, "equation.sql", lambda t: t + ";\nDROP TABLE input_rows;\n")
+    out = _verify_here(copy, monkeypatch)
+    sqlite, duck = _lines(out, "equation.sql (SQLite)")[0], _lines(out, "equation.sql (DuckDB)")[0]
+    assert sqlite.startswith("FAIL") and "one statement" in sqlite
+    assert duck.startswith("FAIL") and "not one SELECT" in duck
+
+
+@pytest.mark.skipif(NODE is None, reason="needs Node.js to hide it")
+def test_without_node_the_node_checks_are_skipped_with_a_reason(copy, tmp_path):
+    empty = tmp_path / "bin"
+    empty.mkdir()
+    r = _verify(copy, path=str(empty))  # the command line: skips do not fail verify
+    assert r.returncode == 0, r.stdout + r.stderr
+    skipped = [ln for ln in r.stdout.splitlines() if ln.startswith("skip")]
+    assert len(skipped) == 5 and all("Node.js (node) is not installed" in ln for ln in skipped)
+    assert "10 of 15 checks passed, 5 skipped" in r.stdout
+
+
+@pytest.mark.skipif(NODE is None, reason="needs Node.js")
+def test_failed_npm_install_skips_only_onnx_in_node_with_a_notice(copy, tmp_path, monkeypatch, capsys):
+    bindir = tmp_path / "bin"
+    bindir.mkdir()
+    (bindir / "node").symlink_to(NODE)
+    npm = bindir / "npm"
+    npm.write_text("#!/bin/sh\necho 'npm ERR! registry unreachable' >&2\nexit 1\n")
+    npm.chmod(0o755)
+    out = _verify_here(copy, monkeypatch, env_extra={"POCKETFOREST_NODE_DIR": str(tmp_path / "nodedir")},
+                       path=str(bindir))
+    assert "installing onnxruntime-node@1 into" in capsys.readouterr().err
+    skipped = [ln for ln in out.splitlines() if ln.startswith("skip")]
+    assert len(skipped) == 3 and all("onnxruntime-node" in ln and "failed" in ln for ln in skipped)
+    assert not [ln for ln in out.splitlines() if ln.startswith("FAIL")]
+    assert _lines(out, "tree.js")[0].startswith("ok")
+
+
+def test_extra_checks_are_run_and_counted(bundles, monkeypatch):
+    seen = []
+
+    def extra(bundle, manifest, ref):
+        seen.append(len(ref))
+        return [verify.Check("custom form", False, 1.0, 0.0, "always differs")]
+
+    monkeypatch.setattr(verify, "EXTRA_CHECKS", [extra])
+    checks = verify.verify_bundle(bundles["binary"], quiet=True)
+    assert seen and checks[-1].form == "custom form" and not checks[-1].ok
+
+
+def test_tampered_checksum_stops_before_running_anything(copy, monkeypatch):
+    with open(copy / "equation.js", "a", encoding="utf-8") as fh:
+        fh.write("\n// edited\n")
+    out = _verify_here(copy, monkeypatch)
+    assert out.splitlines() == ["FAIL  checksums  equation.js altered"]
