@@ -41,6 +41,11 @@ def _distill_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--family", choices=["gaussian", "binomial", "multinomial", "poisson"],
                    help="GLM family for the equation (default from the task)")
     p.add_argument("--robust", action="store_true", help="sandwich (robust) standard errors for the equation")
+    p.add_argument("--max-terms", type=int, metavar="N", help="at most N terms in the suggested equation")
+    p.add_argument("--keep-var", nargs="+", default=[], metavar="COL",
+                   help="always put these columns in the equation as main effects")
+    p.add_argument("--drop-var", nargs="+", default=[], metavar="COL",
+                   help="never use these columns in the equation (the forest still sees them)")
     p.add_argument("--force", action="store_true", help="replace an existing bundle")
     p.add_argument("--json", action="store_true", help="print the summary as JSON")
 
@@ -98,7 +103,8 @@ def _run_distill(data: str, target: str, args: argparse.Namespace) -> int:
             print(f"warning: {note}", file=sys.stderr)
     settings = Settings(trees=args.trees, min_samples_leaf=args.leaf_size, tree_depth=args.tree_depth,
                         target_fidelity=args.fidelity_target, seed=args.seed, split=parse_fractions(args.split),
-                        family=args.family, robust=args.robust, quiet=args.quiet)
+                        family=args.family, robust=args.robust, quiet=args.quiet,
+                        max_terms=args.max_terms, keep_vars=tuple(args.keep_var), drop_vars=tuple(args.drop_var))
     result = distill(table, settings)
     path = result.write(out, force=args.force)
     if args.json:

@@ -37,6 +37,9 @@ class Settings:
     robust: bool = False
     bootstrap: int = 1000
     quiet: bool = False
+    max_terms: int | None = None
+    keep_vars: tuple[str, ...] = ()
+    drop_vars: tuple[str, ...] = ()
 
 
 @dataclass
@@ -108,7 +111,9 @@ def distill(table: Table, settings: Settings | None = None) -> Distillation:
     importance = oob_permutation_importance(forest, Xt_d, y_d, [f.name for f in table.features], s.seed)
 
     _say(s, "looking for bends and interactions")
-    discovery = discover(forest, table, disc, y_d, importance, fills, seed=s.seed, quiet=s.quiet)
+    discovery = discover(forest, table, disc, y_d, importance, fills, seed=s.seed, quiet=s.quiet,
+                         max_terms=s.max_terms, keep=s.keep_vars, drop=s.drop_vars,
+                         min_samples_leaf=s.min_samples_leaf)
 
     _say(s, "fitting the equation on the confirmation rows")
     baseline = main_effects([f for f in table.features if f.name in discovery.main_variables])
