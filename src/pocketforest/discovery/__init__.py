@@ -32,8 +32,8 @@ from .select import Candidate, drop_one, forward_select
 from .shape import BEND_SHARE, choose_form, link_scale
 
 PAIR_VARIABLES = 10       # pairs are searched among at most this many material variables
-PAIR_ROWS = 300           # rows for H² (Friedman & Popescu evaluate at the data points)
-PAIR_BUDGET = 4e8         # tree-row evaluations allowed for all H² work on the main forest
+PAIR_ROWS = 200           # rows for H² (Friedman & Popescu evaluate at the data points)
+PAIR_BUDGET = 2e8         # tree-row evaluations allowed for all H² work on the main forest
 NULL_TREES = 100
 NULL_ROWS = 3000
 SHAPE_ROWS = 2000         # rows for accumulated local effects

@@ -19,12 +19,14 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
+from sklearn.base import BaseEstimator
 from sklearn.inspection import permutation_importance
 
 from ..design import make_preprocessor, model_frame
 from ..forest import fit_forest
 from ..importance import Importance, _tree_error, oob_rows
 from ..intake import Feature
+from .effects import forest_predictor
 
 Z_MATERIAL = 2.0      # one-sided, about 2.3 % if the differences were normal (common practice)
 SHADOW_TREES = 100    # trees of the shadow forest
@@ -130,9 +132,30 @@ def _per_tree_increases(fit, Xt: np.ndarray, y: np.ndarray, features: list[str],
     return out
 
 
+class _Scorer(BaseEstimator):
+    """The shadow forest behind its preprocessing, predicting through the deterministic threaded
+    predictor (scikit-learn's own forest predict runs on one thread here to stay reproducible)."""
+
+    def __init__(self, fit=None):
+        self.fit_ = fit
+
+    def __sklearn_is_fitted__(self) -> bool:
+        return True
+
+    def fit(self, X, y=None):  # never refitted: permutation_importance only scores
+        return self
+
+    def predict(self, X):
+        Xt = self.fit_.pipeline.named_steps["prep"].transform(X)
+        out = forest_predictor(self.fit_.model, self.fit_.task)(Xt)
+        if self.fit_.task == "regression":
+            return out
+        return self.fit_.model.classes_[np.argmax(out, axis=1)]
+
+
 def _held_out(fit, X: pd.DataFrame, y: np.ndarray, names: list[str], task: str, seed: int):
     scoring = "neg_mean_squared_error" if task == "regression" else "accuracy"
-    res = permutation_importance(fit.pipeline, X, y, scoring=scoring, n_repeats=HELD_OUT_REPEATS,
+    res = permutation_importance(_Scorer(fit), X, y, scoring=scoring, n_repeats=HELD_OUT_REPEATS,
                                  random_state=seed, n_jobs=1)
     return np.asarray(res.importances_mean), np.asarray(res.importances_std)
 
