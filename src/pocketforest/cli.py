@@ -94,10 +94,15 @@ def _run_distill(data: str, target: str, args: argparse.Namespace) -> int:
 
     if getattr(args, "trees", 500) < 1:
         raise InputError("--trees must be at least 1")
+    if getattr(args, "max_terms", None) is not None and args.max_terms < 1:
+        raise InputError("--max-terms must be at least 1")
     out = args.out or _default_out(data)
     if Path(out).exists() and not args.force:
         raise InputError(f"{out} already exists: choose another --out or pass --force to replace it")
     table = load(data, target, task=args.task, categorical=args.categorical, ignore=args.ignore)
+    from .discovery import check_requests
+    check_requests({f.name: f.kind for f in table.features}, getattr(args, "keep_var", []),
+                   getattr(args, "drop_var", []), getattr(args, "max_terms", None))
     for note in table.notes:
         if not args.quiet:
             print(f"warning: {note}", file=sys.stderr)

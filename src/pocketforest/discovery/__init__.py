@@ -67,13 +67,13 @@ def discover(forest: ForestFit, table: Table, disc: pd.DataFrame, y: np.ndarray,
              min_samples_leaf: int = 5) -> Discovery:
     features = table.features
     kinds = {f.name: f.kind for f in features}
-    _check_requests(kinds, keep, drop, max_terms)
+    check_requests(kinds, keep, drop, max_terms)
     task = table.task
     rng = np.random.default_rng(seed + 1)
 
     _say(quiet, "  which variables matter (shadow columns, held-out check)")
     mat = judge_materiality(features, disc, y, task, importance, min_samples_leaf=min_samples_leaf,
-                            seed=seed, keep=list(keep), drop=list(drop))
+                            seed=seed, trees=len(forest.model.estimators_), keep=list(keep), drop=list(drop))
     notes = list(mat.notes)
     material = list(mat.material)
     if not material:
@@ -122,7 +122,7 @@ def discover(forest: ForestFit, table: Table, disc: pd.DataFrame, y: np.ndarray,
                      {"rule": mat.summary, "variables": mat.evidence}, selection)
 
 
-def _check_requests(kinds: dict, keep, drop, max_terms) -> None:
+def check_requests(kinds: dict, keep, drop, max_terms) -> None:
     for opt, names in (("--keep-var", keep), ("--drop-var", drop)):
         unknown = [v for v in names if v not in kinds]
         if unknown:

@@ -16,6 +16,7 @@ Predict = Callable[[np.ndarray], np.ndarray]
 
 # Rows x columns of one predict batch; keeps memory flat whatever the design width.
 BATCH_CELLS = 4_000_000
+SMALL_BATCH = 2000  # below this many rows threads cost more than they save
 
 
 def forest_predictor(model, task: str, n_jobs: int = 2) -> Predict:
@@ -37,8 +38,13 @@ def forest_predictor(model, task: str, n_jobs: int = 2) -> Predict:
 
     def predict(X: np.ndarray) -> np.ndarray:
         X = np.ascontiguousarray(X, dtype=np.float32)
-        if len(blocks) == 1:
-            return one_block(blocks[0], X) / len(trees)
+        if len(blocks) == 1 or len(X) < SMALL_BATCH:
+            # Same blocks, same order: identical sums whether threaded or not.
+            parts = [one_block(b, X) for b in blocks]
+            total = parts[0]
+            for p in parts[1:]:
+                total = total + p
+            return total / len(trees)
         with ThreadPoolExecutor(len(blocks)) as pool:
             parts = list(pool.map(lambda b: one_block(b, X), blocks))
         total = parts[0]

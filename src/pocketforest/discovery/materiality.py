@@ -4,10 +4,10 @@ A forest splits on pure noise too, so a noise column's out-of-bag permutation im
 positive and, with many trees, many standard errors above zero: a z threshold alone lets noise in.
 The reference here is a second forest, grown on part of the discovery rows with a *shadow* copy of
 every column beside the real ones (each shadow is its column with the rows permuted, so it keeps
-the column's distribution and has no relation to the outcome). Per tree, a column's importance is
-compared with the largest importance any shadow reached in that tree; a column is material when
-the mean of that difference is more than ``Z_MATERIAL`` standard errors (sd over trees / √trees)
-above zero. A noise column is exchangeable with its shadows, so its mean difference is negative.
+the column's distribution and has no relation to the outcome). The shadows' importances are
+draws from the null distribution of a useless column's importance; a column is material when
+its mean importance lies above the family-wise 95 % prediction bound of that distribution and
+more than ``Z_MATERIAL`` standard errors (sd over trees / √trees) above zero.
 
 The rows the second forest did not see give the held-out cross-check with scikit-learn's
 ``permutation_importance`` (raw columns permuted, categories as a whole).
@@ -19,19 +19,21 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
+from scipy import stats
 from sklearn.base import BaseEstimator
 from sklearn.inspection import permutation_importance
 
 from ..design import make_preprocessor, model_frame
 from ..forest import fit_forest
-from ..importance import Importance, _tree_error, oob_rows
+from ..importance import Importance, oob_rows
 from ..intake import Feature
 from .effects import forest_predictor
 
+ALPHA = 0.05          # family-wise share of useless columns allowed through (common practice)
 Z_MATERIAL = 2.0      # one-sided, about 2.3 % if the differences were normal (common practice)
 SHADOW_TREES = 100    # trees of the shadow forest
 SHADOW_ROWS = 4000    # discovery rows it may use (2/3 fit, 1/3 held out), for speed on big tables
-HELD_OUT_REPEATS = 5
+HELD_OUT_REPEATS = 3
 CORRELATED = 0.7      # |Spearman| at which importances are shared out (Strobl et al. 2008)
 
 
@@ -44,7 +46,7 @@ class Materiality:
 
 
 def judge_materiality(features: list[Feature], disc: pd.DataFrame, y: np.ndarray, task: str,
-                      importance: list[Importance], *, min_samples_leaf: int, seed: int,
+                      importance: list[Importance], *, min_samples_leaf: int, seed: int, trees: int = SHADOW_TREES,
                       keep: list[str] = (), drop: list[str] = ()) -> Materiality:
     rng = np.random.default_rng(seed + 101)
     n = len(disc)
@@ -59,18 +61,17 @@ def judge_materiality(features: list[Feature], disc: pd.DataFrame, y: np.ndarray
     allf = list(features) + shadows
     prep, columns = make_preprocessor(allf, frame)
     X = model_frame(frame, allf)
-    fit = fit_forest(X.iloc[fit_rows], y[fit_rows], prep, columns, task, trees=SHADOW_TREES,
+    fit = fit_forest(X.iloc[fit_rows], y[fit_rows], prep, columns, task, trees=min(SHADOW_TREES, trees),
                      min_samples_leaf=min_samples_leaf, seed=seed + 7, quiet=True)
-    Xt = np.asarray(prep.transform(X.iloc[fit_rows]), dtype=np.float32)
+    Xt = np.ascontiguousarray(prep.transform(X.iloc[fit_rows]), dtype=np.float32)
     names = [f.name for f in allf]
     inc = _per_tree_increases(fit, Xt, y[fit_rows], names, seed + 11)
     real, shadow = inc[:, :len(features)], inc[:, len(features):]
-    top_shadow = shadow.max(axis=1)
-    diff = real - top_shadow[:, None]
-    t = len(diff)
-    d_mean = diff.mean(axis=0)
-    d_se = diff.std(axis=0, ddof=1) / np.sqrt(t) if t > 1 else np.full(len(features), np.inf)
-    z = np.divide(d_mean, d_se, out=np.zeros_like(d_mean), where=d_se > 0)
+    t = len(real)
+    mean = real.mean(axis=0)
+    se = real.std(axis=0, ddof=1) / np.sqrt(t) if t > 1 else np.full(len(features), np.inf)
+    z = np.divide(mean, se, out=np.zeros_like(mean), where=se > 0)
+    threshold, rule = _null_threshold(shadow, len(features))
 
     held = _held_out(fit, X.iloc[held_rows], y[held_rows], names, task, seed) if len(held_rows) >= 10 else None
     main = {i.feature: i for i in importance}
@@ -78,11 +79,9 @@ def judge_materiality(features: list[Feature], disc: pd.DataFrame, y: np.ndarray
     for j, f in enumerate(features):
         ev = {"oob_importance": main[f.name].mean if f.name in main else None,
               "oob_se": main[f.name].se if f.name in main else None,
-              "shadow_forest_importance": float(real[:, j].mean()),
-              "largest_shadow_importance": float(top_shadow.mean()),
-              "difference_mean": float(d_mean[j]), "difference_se": float(d_se[j]), "z": float(z[j]),
-              "z_threshold": Z_MATERIAL}
-        passed = bool(z[j] > Z_MATERIAL)
+              "shadow_forest_importance": float(mean[j]), "shadow_forest_se": float(se[j]), "z": float(z[j]),
+              "null_threshold": float(threshold)}
+        passed = bool(mean[j] > threshold and z[j] > Z_MATERIAL)
         if held is not None:
             h_mean, h_std, shadow_max = held[0][j], held[1][j], float(held[0][len(features):].max())
             ev["held_out"] = {"importance": float(h_mean), "sd_over_repeats": float(h_std),
@@ -90,8 +89,8 @@ def judge_materiality(features: list[Feature], disc: pd.DataFrame, y: np.ndarray
                               "above_shadows": bool(h_mean > shadow_max)}
             if passed != bool(h_mean > shadow_max):
                 notes.append(f"{f.name}: out-of-bag and held-out importance disagree on whether it beats "
-                             f"the shadow columns (z {z[j]:.2f}; held-out {h_mean:.4g} vs largest shadow "
-                             f"{shadow_max:.4g}); the out-of-bag rule decides")
+                             f"the shadow columns (out-of-bag {mean[j]:.4g} vs null threshold {threshold:.4g}; "
+                             f"held-out {h_mean:.4g} vs largest shadow {shadow_max:.4g}); the out-of-bag rule decides")
         if f.name in drop:
             ev["decision"] = "left out by request"
         elif f.name in keep:
@@ -105,11 +104,28 @@ def judge_materiality(features: list[Feature], disc: pd.DataFrame, y: np.ndarray
         evidence[f.name] = ev
     order = {name: k for k, name in enumerate(i.feature for i in importance)}
     material.sort(key=lambda v: order.get(v, len(order)))
-    summary = {"rule": "per-tree out-of-bag importance minus the largest shadow importance, "
-                       f"mean/se > {Z_MATERIAL}", "shadow_forest": {"trees": SHADOW_TREES, "rows_fit": int(len(fit_rows)),
+    summary = {"rule": rule, "null_threshold": float(threshold), "z_threshold": Z_MATERIAL,
+               "shadow_importance": [float(v) for v in shadow.mean(axis=0)], "shadow_forest": {"trees": min(SHADOW_TREES, trees), "rows_fit": int(len(fit_rows)),
                                                                     "rows_held_out": int(len(held_rows))}}
     notes += correlated_pairs(features, disc, material)
     return Materiality(material, evidence, notes, summary)
+
+
+def _null_threshold(shadow: np.ndarray, p: int) -> tuple[float, str]:
+    """Importance a useless column stays below, family-wise 95 % over the ``p`` columns.
+
+    The shadows' mean importances are draws from the null distribution; a new draw falls below
+    mean + t(1 − α/p; S − 1) · sd · √(1 + 1/S) with probability 1 − α/p (a normal prediction
+    bound, Bonferroni over columns). With fewer than three shadows the largest one is the bound.
+    """
+    means = shadow.mean(axis=0)
+    s = len(means)
+    if s < 3:
+        return float(means.max()), "mean out-of-bag importance above the largest shadow's, and mean/se above 2"
+    q = stats.t.ppf(1.0 - ALPHA / p, s - 1)
+    bound = float(means.mean() + q * means.std(ddof=1) * np.sqrt(1.0 + 1.0 / s))
+    return bound, (f"mean out-of-bag importance above the shadows' {100 * (1 - ALPHA):.0f}% family-wise "
+                   "prediction bound (Student t, Bonferroni over columns), and mean/se above 2")
 
 
 def _per_tree_increases(fit, Xt: np.ndarray, y: np.ndarray, features: list[str], seed: int) -> np.ndarray:
@@ -123,12 +139,13 @@ def _per_tree_increases(fit, Xt: np.ndarray, y: np.ndarray, features: list[str],
         if len(rows) < 2:
             continue
         Xo, yo = Xt[rows], target[rows]
-        base = _tree_error(est, Xo, yo, fit.task)
+        base = _error(est, Xo, yo, fit.task)
         perm = rng.permutation(len(rows))
         for j, g in enumerate(groups):
             Xp = Xo.copy()
             Xp[:, g] = Xo[perm][:, g]
-            out[t, j] = _tree_error(est, Xp, yo, fit.task) - base
+            Xp = np.ascontiguousarray(Xp)
+            out[t, j] = _error(est, Xp, yo, fit.task) - base
     return out
 
 
@@ -151,6 +168,13 @@ class _Scorer(BaseEstimator):
         if self.fit_.task == "regression":
             return out
         return self.fit_.model.classes_[np.argmax(out, axis=1)]
+
+
+def _error(est, X: np.ndarray, y: np.ndarray, task: str) -> float:
+    """Mean squared error or share misclassified of one tree (inputs already float32)."""
+    if task == "regression":
+        return float(np.mean((est.predict(X, check_input=False) - y) ** 2))
+    return float(np.mean(np.argmax(est.predict_proba(X, check_input=False), axis=1) != y))
 
 
 def _held_out(fit, X: pd.DataFrame, y: np.ndarray, names: list[str], task: str, seed: int):
