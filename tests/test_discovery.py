@@ -141,3 +141,10 @@ def test_demo_truth_is_recovered():
     k = next(i for i, t in enumerate(r.equation.terms) if t.kind == "interaction")
     col = next(i for i, c in enumerate(r.equation.columns) if c.term == k)
     assert r.equation.coef[1 + col] > 0      # water helps more with more nitrogen, as generated
+
+
+def test_shape_records_the_equation_form(synthetic_run):
+    x1 = synthetic_run.discovery.shapes["x1"]
+    form = x1["in_equation"]
+    assert form["terms"][0]["kind"] in ("quadratic", "hinge")
+    assert len(form["fitted"]) == len(form["x"]) and form["r2_to_curve"] > 0.9

@@ -29,7 +29,7 @@ from .effects import (ale_numeric, forest_predictor, partial_dependence_brute, p
 from .interactions import HCalculator
 from .materiality import correlated_with, judge_materiality
 from .select import Candidate, drop_one, forward_select
-from .shape import BEND_SHARE, choose_form, link_scale
+from .shape import BEND_SHARE, choose_form, form_fit, link_scale
 
 PAIR_VARIABLES = 10       # pairs are searched among at most this many material variables
 PAIR_ROWS = 200           # rows for H² (Friedman & Popescu evaluate at the data points)
@@ -116,10 +116,27 @@ def discover(forest: ForestFit, table: Table, disc: pd.DataFrame, y: np.ndarray,
     terms, selection = _select(features, kinds, disc, y, task, forest.classes, fills, material, shapes,
                                interactions, mat, max_terms, seed)
     main_variables = [t.variables[0] for t in terms if t.kind in ("linear", "categorical")]
+    _attach_equation_forms(shapes, terms)
     selection["rule"] = ("forward selection: a candidate enters when it lowers the BIC of the GLM fitted "
                          "on the discovery rows")
     return Discovery(terms, main_variables, interactions, shapes, notes,
                      {"rule": mat.summary, "variables": mat.evidence}, selection)
+
+
+def _attach_equation_forms(shapes: dict, terms: list[Term]) -> None:
+    """Beside each numeric curve, the form the equation gives that variable, fitted to the curve,
+    so a report can draw both without redoing any maths."""
+    for v, sh in shapes.items():
+        if sh["kind"] != "numeric" or not sh.get("pd"):
+            continue
+        bends = [t for t in terms if t.variables == [v] and t.kind in ("quadratic", "hinge", "log")]
+        if sh.get("curve_used") == "ale" and sh.get("ale"):
+            x, curve = sh["ale"]["edges"], sh["ale"]["values"]
+        else:
+            x, curve = sh["grid"], sh["pd"]
+        fitted, r2 = form_fit(np.asarray(x), np.asarray(curve), bends)
+        sh["in_equation"] = {"terms": [{"kind": t.kind, **t.params} for t in bends] or [{"kind": "linear"}],
+                             "x": _compact(x), "fitted": _compact(_squeeze(fitted)), "r2_to_curve": r2}
 
 
 def check_requests(kinds: dict, keep, drop, max_terms) -> None:
@@ -322,7 +339,8 @@ def _select(features, kinds, disc, y, task, classes, fills, material, shapes, in
             elif kind == "log":
                 ts = [Term("log", [v], {"shift": 0.0}, ev)]
             else:
-                ts = [Term("hinge", [v], {"knot": k, "direction": "above"}, dict(ev)) for k in info["knots"]]
+                ts = [Term("hinge", [v], {"knot": float(f"{k:.6g}"), "direction": "above"}, dict(ev))
+                      for k in info["knots"]]
             candidates.append(Candidate(f"bend ({kind}):{v}", ts, excludes=f"bend:{v}"))
     for rec in interactions:
         if not rec["kept"]:

@@ -82,3 +82,26 @@ def choose_form(x: np.ndarray, curve: np.ndarray, data: np.ndarray, weights: np.
     return {"share_missed_by_line": missed, "forms": forms, "best_bend": chosen,
             "best_bend_r2": forms[chosen]["r2"], "bend_put_forward": bool(bends),
             "chosen": chosen if bends else "linear", "centre": centre}
+
+
+def form_columns(x: np.ndarray, terms: list) -> np.ndarray:
+    """Columns of a line plus the given bend terms (quadratic / hinge / log) at ``x``."""
+    cols = [np.ones_like(x), x]
+    for t in terms:
+        p = t.params
+        if t.kind == "quadratic":
+            cols.append((x - p["centre"]) ** 2)
+        elif t.kind == "hinge":
+            cols.append(np.maximum(x - p["knot"], 0) if p.get("direction", "above") == "above" else np.maximum(p["knot"] - x, 0))
+        elif t.kind == "log":
+            cols.append(np.log(x + p.get("shift", 0.0)))
+    return np.column_stack(cols)
+
+
+def form_fit(x: np.ndarray, curve: np.ndarray, terms: list) -> tuple[np.ndarray, float]:
+    """Least-squares fit of the equation's form for one variable to its curve, and its R²."""
+    x = np.asarray(x, dtype=float)
+    y = np.asarray(curve, dtype=float).reshape(len(x), -1)
+    D = form_columns(x, terms)
+    coef, *_ = np.linalg.lstsq(D, y, rcond=None)
+    return D @ coef, _r2(D, y)
