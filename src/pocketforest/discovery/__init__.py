@@ -16,6 +16,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
+from scipy import stats
 from sklearn.ensemble import RandomForestClassifier, RandomForestRegressor
 
 from ..design import model_frame
@@ -32,8 +33,12 @@ from .select import Candidate, drop_one, forward_select
 from .shape import BEND_SHARE, choose_form, form_fit, link_scale
 
 PAIR_VARIABLES = 10       # pairs are searched among at most this many material variables
-PAIR_ROWS = 200           # rows for H² (Friedman & Popescu evaluate at the data points)
-PAIR_BUDGET = 2e8         # tree-row evaluations allowed for all H² work on the main forest
+PAIR_ROWS = (100, 200)    # fewest and most rows for H² (Friedman & Popescu evaluate at the data points)
+# H² on m rows costs m² forest predictions per pair (and per variable). Growing the forest costs
+# about (discovery rows × log rows × features tried) per tree, so keeping m² × pairs under a
+# multiple of the discovery rows keeps H² a fixed, small share of the forest fit at any size.
+PAIR_ROWS_PER_DISCOVERY_ROW = 8
+PAIR_ALPHA = 0.05         # family-wise share of interaction-free pairs allowed through (common practice)
 NULL_TREES = 100
 NULL_ROWS = 3000
 SHAPE_ROWS = 2000         # rows for accumulated local effects
@@ -213,9 +218,9 @@ def _interactions(forest, task, Xt, y, groups, kinds, shapes, material, pairs, p
                   min_samples_leaf, pair_vars, disc, fills, rng) -> list[dict]:
     if not pairs:
         return []
-    trees = len(forest.model.estimators_)
     blocks = len(pairs) + len({v for p in pairs for v in p}) + 1
-    m = int(min(PAIR_ROWS, len(Xt), max(100, np.sqrt(PAIR_BUDGET / (trees * blocks)))))
+    lo, hi = PAIR_ROWS
+    m = int(min(hi, len(Xt), max(lo, np.sqrt(PAIR_ROWS_PER_DISCOVERY_ROW * len(Xt) / blocks))))
     rows = np.sort(rng.permutation(len(Xt))[:m])
     Xe = Xt[rows]
     _say(quiet, f"  interactions: H² for {len(pairs)} pairs on {m} rows")
@@ -228,19 +233,35 @@ def _interactions(forest, task, Xt, y, groups, kinds, shapes, material, pairs, p
     null = _null_forest(forest, task, Xt, y, groups, kinds, shapes, material, seed, min_samples_leaf, rng)
     null_calc = HCalculator(lambda X: link_scale(null(X), task), Xe, groups)
     null_stats = {p: null_calc.pair(*p) for p in pairs}
-    ref = max(s.strength for s in null_stats.values())
+    ref, ref_rule = _strength_bound([z.strength for z in null_stats.values()])
     out = []
     for (a, b) in pairs:
         s, z = stats[(a, b)], null_stats[(a, b)]
         kept = bool(s.strength > ref and s.h2 > z.h2)
         rec = {"variables": [a, b], "h2": s.h2, "strength": s.strength,
                "kind": f"{kinds[a]}×{kinds[b]}", "null_h2": z.h2, "null_strength": z.strength,
-               "strength_threshold": ref, "kept": kept, "rows": m}
+               "strength_threshold": ref, "threshold_rule": ref_rule, "kept": kept, "rows": m}
         if kept and kinds[a] == kinds[b] == "numeric":
             rec["product"] = _product_fit(Xe, groups[a][0], groups[b][0], Xt, s.residual)
         out.append(rec)
     out.sort(key=lambda r: -r["strength"])
     return out
+
+
+def _strength_bound(null: list[float]) -> tuple[float, str]:
+    """The interaction strength a forest invents on data without interactions, family-wise.
+
+    The null pairs' strengths are draws from that distribution; the bound is the upper
+    1 − α/P prediction limit of a Student t (Bonferroni over the P pairs tested). With fewer
+    than three pairs the largest null strength is the bound.
+    """
+    v = np.asarray(null, dtype=float)
+    if len(v) < 3:
+        return float(v.max()), "largest strength of the same pairs in the additive null forest"
+    q = stats.t.ppf(1.0 - PAIR_ALPHA / len(v), len(v) - 1)
+    bound = float(v.mean() + q * v.std(ddof=1) * np.sqrt(1.0 + 1.0 / len(v)))
+    return bound, (f"{100 * (1 - PAIR_ALPHA):.0f}% family-wise prediction bound of the pairs' strengths "
+                   "in a forest grown on an additive version of the data (Student t, Bonferroni over pairs)")
 
 
 def _product_fit(Xe, ca, cb, Xt, resid) -> dict:

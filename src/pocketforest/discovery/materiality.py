@@ -32,7 +32,7 @@ from .effects import forest_predictor
 ALPHA = 0.05          # family-wise share of useless columns allowed through (common practice)
 Z_MATERIAL = 2.0      # one-sided, about 2.3 % if the differences were normal (common practice)
 SHADOW_TREES = 100    # trees of the shadow forest
-SHADOW_ROWS = 4000    # discovery rows it may use (2/3 fit, 1/3 held out), for speed on big tables
+SHADOW_ROWS = 3000    # discovery rows it may use (2/3 fit, 1/3 held out), for speed on big tables
 HELD_OUT_REPEATS = 3
 CORRELATED = 0.7      # |Spearman| at which importances are shared out (Strobl et al. 2008)
 
