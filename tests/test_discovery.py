@@ -148,3 +148,11 @@ def test_shape_records_the_equation_form(synthetic_run):
     form = x1["in_equation"]
     assert form["terms"][0]["kind"] in ("quadratic", "hinge")
     assert len(form["fitted"]) == len(form["x"]) and form["r2_to_curve"] > 0.9
+
+
+def test_term_cap_keeps_hierarchy():
+    r = _distill(synthetic_table(n=800, seed=9), max_terms=2, trees=40)
+    terms = r.equation.terms
+    assert len(terms) <= 2
+    mains = set(r.discovery.main_variables)
+    assert all(set(t.variables) <= mains for t in terms)

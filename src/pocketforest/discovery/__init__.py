@@ -340,12 +340,18 @@ def _select(features, kinds, disc, y, task, classes, fills, material, shapes, in
     rows = np.sort(np.random.default_rng(seed + 29).permutation(n)[:min(n, limit)])
     data = disc.iloc[rows].reset_index(drop=True)
     yy = np.asarray(y)[rows]
+    # Requested variables first, then by importance; a term cap keeps the front of this list, and
+    # only variables that keep their main effect may bend or enter a product (hierarchy).
+    order = sorted(material, key=lambda v: (not mat.evidence[v]["decision"].startswith("kept by request"),
+                                            material.index(v)))
+    if max_terms is not None:
+        order = order[:max_terms]
     base = []
-    for v in material:
+    for v in order:
         ev = {"reason": "main effect", **{k: mat.evidence[v].get(k) for k in ("decision", "z", "oob_importance", "oob_se")}}
         base.append(Term("linear" if kinds[v] == "numeric" else "categorical", [v], evidence=ev))
     candidates: list[Candidate] = []
-    for v in material:
+    for v in order:
         sh = shapes[v]
         if sh["kind"] != "numeric" or not sh.get("bend_put_forward"):
             continue
@@ -364,7 +370,7 @@ def _select(features, kinds, disc, y, task, classes, fills, material, shapes, in
                       for k in info["knots"]]
             candidates.append(Candidate(f"bend ({kind}):{v}", ts, excludes=f"bend:{v}"))
     for rec in interactions:
-        if not rec["kept"]:
+        if not rec["kept"] or not set(rec["variables"]) <= set(order):
             continue
         a, b = rec["variables"]
         ev = {"reason": "interaction", "h2": rec["h2"], "strength": rec["strength"], "null_h2": rec["null_h2"],

@@ -23,7 +23,8 @@ def link_scale(values: np.ndarray, task: str) -> np.ndarray:
     """Regression values as they are; probabilities [g, K] as log-odds against the first class."""
     if task == "regression":
         return values.reshape(len(values), -1)
-    p = np.clip(values.reshape(len(values), -1), 1e-6, 1 - 1e-6)
+    # Clipped at 1 % so that rows a forest calls certain do not dominate differences of log-odds.
+    p = np.clip(values.reshape(len(values), -1), 0.01, 0.99)
     return np.log(p[:, 1:]) - np.log(p[:, :1])
 
 
