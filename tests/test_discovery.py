@@ -183,3 +183,17 @@ def test_recorded_partial_dependence_equals_scikit_learn(synthetic_run):
     grid = np.asarray(r.discovery.shapes["x1"]["grid"])
     ref = partial_dependence(r.forest.model, Xt, [col], method="recursion", custom_values={col: grid})
     np.testing.assert_allclose(r.discovery.shapes["x1"]["pd"], ref["average"][0], atol=1e-5)
+
+
+def test_number_by_category_interaction_is_found_and_fitted():
+    # Invented: the slope of x is 1 for green and blue, 3.5 for red; z is additive.
+    rng = np.random.default_rng(3)
+    n = 1600
+    x, z = rng.uniform(-1, 1, n), rng.uniform(-1, 1, n)
+    g = rng.choice(["red", "green", "blue"], n)
+    df = pd.DataFrame({"x": x, "g": g, "z": z, "y": x + 2.5 * x * (g == "red") + z + rng.normal(0, 0.3, n)})
+    r = _distill(df, trees=60)
+    kept = [rec["variables"] for rec in r.discovery.interactions if rec["kept"]]
+    assert kept == [["x", "g"]]
+    assert any(t.kind == "interaction" and t.variables == ["x", "g"] for t in r.equation.terms)
+    assert r.evaluation["equation"]["r2"] > 0.9

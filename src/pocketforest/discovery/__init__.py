@@ -375,8 +375,14 @@ def _select(features, kinds, disc, y, task, classes, fills, material, shapes, in
         a, b = rec["variables"]
         ev = {"reason": "interaction", "h2": rec["h2"], "strength": rec["strength"], "null_h2": rec["null_h2"],
               "strength_threshold": rec["strength_threshold"]}
-        centres = {v: round(float(pd.to_numeric(disc[v], errors="coerce").fillna(fills[v]).mean()), 6)
-                   for v in (a, b) if kinds[v] == "numeric"}
+        if kinds[b] == "numeric":
+            centres = {v: round(float(pd.to_numeric(disc[v], errors="coerce").fillna(fills[v]).mean()), 6)
+                       for v in (a, b)}
+        else:
+            # A number times a category's indicators is left uncentred: with both main effects in
+            # the model centring changes nothing fitted, and the plain product keeps the formula's
+            # treatment coding (one slope change per non-reference level).
+            centres = {}
         group = f"product:{a}*{b}"
         plain = Term("interaction", [a, b], {"centres": centres, "power": 1}, ev)
         candidates.append(Candidate(group, [plain], excludes=group))
