@@ -115,7 +115,7 @@ def discover(forest: ForestFit, table: Table, disc: pd.DataFrame, y: np.ndarray,
              if "numeric" in (kinds[a], kinds[b])]
     pairs = [(a, b) if kinds[a] == "numeric" else (b, a) for a, b in pairs]
     interactions = _interactions(forest, task, Xt, y, groups, kinds, shapes, material, pairs, predict_link,
-                                 seed, quiet, min_samples_leaf, pair_vars, disc, fills, rng)
+                                 seed, quiet, min_samples_leaf, rng)
 
     _say(quiet, "  choosing terms on the discovery rows")
     terms, selection = _select(features, kinds, disc, y, task, forest.classes, fills, material, shapes,
@@ -215,7 +215,7 @@ def _curve(shape: dict, x: np.ndarray) -> np.ndarray:
 # ---------------------------------------------------------------- interactions
 
 def _interactions(forest, task, Xt, y, groups, kinds, shapes, material, pairs, predict_link, seed, quiet,
-                  min_samples_leaf, pair_vars, disc, fills, rng) -> list[dict]:
+                  min_samples_leaf, rng) -> list[dict]:
     if not pairs:
         return []
     blocks = len(pairs) + len({v for p in pairs for v in p}) + 1
