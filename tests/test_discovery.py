@@ -197,3 +197,16 @@ def test_number_by_category_interaction_is_found_and_fitted():
     assert kept == [["x", "g"]]
     assert any(t.kind == "interaction" and t.variables == ["x", "g"] for t in r.equation.terms)
     assert r.evaluation["equation"]["r2"] > 0.9
+
+
+def test_pure_noise_outcome_suggests_no_structure():
+    # Invented: the outcome ignores every column, so no bend or product should be suggested.
+    rng = np.random.default_rng(21)
+    n = 1000
+    df = pd.DataFrame({f"u{i}": rng.uniform(0, 1, n) for i in range(5)})
+    df["k"] = rng.choice(["a", "b", "c"], n)
+    df["y"] = rng.normal(0, 1, n)
+    r = _distill(df, trees=60)
+    assert all(t.kind in ("linear", "categorical") for t in r.equation.terms), r.equation.formula
+    assert not any(rec["kept"] for rec in r.discovery.interactions)
+    assert len(r.equation.terms) <= 1
