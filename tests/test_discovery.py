@@ -98,6 +98,9 @@ def test_bad_requests_are_one_line_errors(tmp_path):
     df.to_csv(csv, index=False)
     res = run_cli("distill", str(csv), "--target", "y", "--out", str(tmp_path / "b"), "--max-terms", "0", "-q")
     assert res.returncode == 2 and res.stderr.startswith("error: --max-terms must be at least 1")
+    res = run_cli("distill", str(csv), "--target", "y", "--out", str(tmp_path / "b"), "--drop-var", "nope", "-q")
+    assert res.returncode == 2 and res.stderr.startswith("error: --drop-var: column 'nope' is not a feature")
+    assert len(res.stderr.strip().splitlines()) == 1
     assert not (tmp_path / "b").exists()
 
 
