@@ -45,6 +45,11 @@ def _distill_options(p: argparse.ArgumentParser) -> None:
                    help="add N rows sampled around the discovery rows, labelled by the forest, to fit the tree")
     p.add_argument("--no-term-cap", action="store_true",
                    help="keep every suggested term even when the confirmation rows are few per coefficient")
+    p.add_argument("--max-terms", type=int, metavar="N", help="at most N terms in the suggested equation")
+    p.add_argument("--keep-var", nargs="+", default=[], metavar="COL",
+                   help="always put these columns in the equation as main effects")
+    p.add_argument("--drop-var", nargs="+", default=[], metavar="COL",
+                   help="never use these columns in the equation (the forest still sees them)")
     p.add_argument("--force", action="store_true", help="replace an existing bundle")
     p.add_argument("--json", action="store_true", help="print the summary as JSON")
 
@@ -109,17 +114,23 @@ def _run_distill(data: str, target: str, args: argparse.Namespace) -> int:
         raise InputError("--trees must be at least 1")
     if getattr(args, "synthetic_rows", 0) < 0:
         raise InputError(f"--synthetic-rows {args.synthetic_rows} is negative: give 0 or more rows")
+    if getattr(args, "max_terms", None) is not None and args.max_terms < 1:
+        raise InputError("--max-terms must be at least 1")
     out = args.out or _default_out(data)
     if Path(out).exists() and not args.force:
         raise InputError(f"{out} already exists: choose another --out or pass --force to replace it")
     table = load(data, target, task=args.task, categorical=args.categorical, ignore=args.ignore)
+    from .discovery import check_requests
+    check_requests({f.name: f.kind for f in table.features}, getattr(args, "keep_var", []),
+                   getattr(args, "drop_var", []), getattr(args, "max_terms", None))
     for note in table.notes:
         if not args.quiet:
             print(f"warning: {note}", file=sys.stderr)
     settings = Settings(trees=args.trees, min_samples_leaf=args.leaf_size, tree_depth=args.tree_depth,
                         target_fidelity=args.fidelity_target, seed=args.seed, split=parse_fractions(args.split),
                         family=args.family, robust=args.robust, quiet=args.quiet,
-                        synthetic_rows=args.synthetic_rows, cap_terms=not args.no_term_cap)
+                        synthetic_rows=args.synthetic_rows, cap_terms=not args.no_term_cap,
+                        max_terms=args.max_terms, keep_vars=tuple(args.keep_var), drop_vars=tuple(args.drop_var))
     result = distill(table, settings)
     path = result.write(out, force=args.force)
     if args.json:

@@ -39,6 +39,9 @@ class Settings:
     quiet: bool = False
     synthetic_rows: int = 0          # extra forest-labelled rows for the surrogate tree (Breiman & Shang 1996)
     cap_terms: bool = True           # about ten confirmation rows per coefficient (Peduzzi et al. 1996)
+    max_terms: int | None = None
+    keep_vars: tuple[str, ...] = ()
+    drop_vars: tuple[str, ...] = ()
 
 
 @dataclass
@@ -111,7 +114,9 @@ def distill(table: Table, settings: Settings | None = None) -> Distillation:
     importance = oob_permutation_importance(forest, Xt_d, y_d, [f.name for f in table.features], s.seed)
 
     _say(s, "looking for bends and interactions")
-    discovery = discover(forest, table, disc, y_d, importance, fills, seed=s.seed, quiet=s.quiet)
+    discovery = discover(forest, table, disc, y_d, importance, fills, seed=s.seed, quiet=s.quiet,
+                         max_terms=s.max_terms, keep=s.keep_vars, drop=s.drop_vars,
+                         min_samples_leaf=s.min_samples_leaf)
 
     _say(s, "fitting the equation on the confirmation rows")
     baseline = main_effects([f for f in table.features if f.name in discovery.main_variables])
