@@ -41,11 +41,14 @@ def test_equation_sees_only_the_confirmation_rows():
     eq = result.equation
     assert eq.fit_on == "confirmation" and eq.n == len(result.splits.confirmation)
     conf = df.iloc[result.splits.confirmation].reset_index(drop=True)
-    # refitting on exactly those rows reproduces the coefficients; any other rows would not
+    # refitting the equation's own formula on exactly those rows reproduces the coefficients;
+    # any other rows would not (statsmodels as the reference library)
     import statsmodels.formula.api as smf
-    ref = smf.ols("events ~ dose + C(site, Treatment(reference='{}')) + noise".format(
-        conf.site.value_counts().sort_index(ascending=True).idxmax()), conf).fit()
+    ref = smf.ols(eq.formula, conf).fit()
     assert np.isclose(eq.table[0]["estimate"], ref.params.iloc[0])
+    np.testing.assert_allclose(sorted(r["estimate"] for r in eq.table), sorted(ref.params), rtol=1e-8)
+    other = df.iloc[result.splits.test].reset_index(drop=True)
+    assert not np.isclose(smf.ols(eq.formula, other).fit().params.iloc[0], eq.table[0]["estimate"])
     assert "Cox 1975" in eq.note
 
 

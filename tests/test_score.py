@@ -79,19 +79,21 @@ def test_unseen_category_follows_the_policy_and_is_counted(bundles, tmp_path):
     levels in the trees, and one input outside the training envelope."""
     bundle = bundles["regression"]
     manifest = json.loads((bundle / "manifest.json").read_text())
-    ref_level = next(t["reference"]["site"] for t in manifest["terms"] if t["kind"] == "categorical"
-                     and t["variables"] == ["site"])
+    term = next(t for t in manifest["terms"] if t["kind"] == "categorical")
+    var = term["variables"][0]
+    ref_level = term["reference"][var]
     data = _new_rows(n=12)
     data["x1"] = data["x1"].clip(-0.9, 0.9)
     data["x3"] = data["x3"].fillna(0.0)
+    data[[c for c in ("colour", "site") if c != var]] = "north" if var == "colour" else "red"
     seen = data.copy()
-    seen["site"] = ref_level
-    data["site"] = "east"
+    seen[var] = ref_level
+    data[var] = "east"
     data.to_csv(tmp_path / "a.csv", index=False)
     seen.to_csv(tmp_path / "b.csv", index=False)
     r = run_cli("score", str(bundle), str(tmp_path / "a.csv"), "--model", "equation", "--out", str(tmp_path / "pa.csv"))
     assert r.returncode == 0, r.stderr
-    assert "'site': 12 row(s) have categories never seen in training (e.g. 'east')" in r.stderr
+    assert f"'{var}': 12 row(s) have categories never seen in training (e.g. 'east')" in r.stderr
     score_file(str(bundle), str(tmp_path / "b.csv"), "equation", str(tmp_path / "pb.csv"), quiet=True)
     pa_, pb = pd.read_csv(tmp_path / "pa.csv"), pd.read_csv(tmp_path / "pb.csv")
     np.testing.assert_allclose(pa_["prediction"], pb["prediction"], rtol=1e-6)

@@ -156,11 +156,14 @@ def to_text(node: Node) -> str:
     if isinstance(node, Const):
         return _fmt(node.value)
     if isinstance(node, Sub):
+        if isinstance(node.right, Const) and node.right.value < 0:
+            return f"({to_text(node.left)} + {_fmt(-node.right.value)})"
         return f"({to_text(node.left)} - {to_text(node.right)})"
     if isinstance(node, Prod):
         return " * ".join(to_text(i) for i in node.items)
     if isinstance(node, Square):
-        return f"{to_text(node.arg)}^2"
+        inner = to_text(node.arg)
+        return f"{inner}^2" if isinstance(node.arg, (Sub, Num)) else f"({inner})^2"
     if isinstance(node, Pos):
         return f"max(0, {to_text(node.arg).removeprefix('(').removesuffix(')')})"
     if isinstance(node, Log):
@@ -172,14 +175,19 @@ def to_formula(node: Node) -> str:
     """Expression inside I(...) of a statsmodels formula (numpy functions as np.*)."""
     if isinstance(node, Num):
         return formula_name(node.feature)
+    if isinstance(node, Is):
+        return f"({formula_name(node.feature)} == {str_literal(node.level)})"
     if isinstance(node, Const):
         return num_literal(node.value)
     if isinstance(node, Sub):
+        if isinstance(node.right, Const) and node.right.value < 0:
+            return f"({to_formula(node.left)} + {num_literal(-node.right.value)})"
         return f"({to_formula(node.left)} - {to_formula(node.right)})"
     if isinstance(node, Prod):
         return " * ".join(to_formula(i) for i in node.items)
     if isinstance(node, Square):
-        return f"({to_formula(node.arg)}) ** 2"
+        inner = to_formula(node.arg)
+        return f"{inner} ** 2" if isinstance(node.arg, (Sub, Num)) else f"({inner}) ** 2"
     if isinstance(node, Pos):
         return f"np.maximum({to_formula(node.arg)}, 0)"
     if isinstance(node, Log):

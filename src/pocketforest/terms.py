@@ -63,6 +63,11 @@ def resolve_levels(terms: list[Term], data: pd.DataFrame, kinds: dict[str, str])
     return out
 
 
+def _offset(var: str, centre: float) -> str:
+    """"(x - 3.2)" or "(x + 0.5)" for a label: no double signs."""
+    return f"({var} - {centre:.4g})" if centre >= 0 else f"({var} + {-centre:.4g})"
+
+
 def _num(var: str, fills: dict) -> Num:
     return Num(var, float(fills[var]))
 
@@ -79,16 +84,16 @@ def term_columns(index: int, term: Term, fills: dict[str, float | str], kinds: d
         return [Column(index, v[0], _num(v[0], fills))]
     if term.kind == "quadratic":
         node = Square(Sub(_num(v[0], fills), Const(float(p["centre"]))))
-        return [Column(index, f"({v[0]} - {p['centre']:.4g})^2", node)]
+        return [Column(index, f"{_offset(v[0], float(p['centre']))}^2", node)]
     if term.kind == "hinge":
         k = float(p["knot"])
         if p.get("direction", "above") == "above":
-            return [Column(index, f"max(0, {v[0]} - {k:.4g})", Pos(Sub(_num(v[0], fills), Const(k))))]
+            return [Column(index, f"max(0, {_offset(v[0], k)[1:-1]})", Pos(Sub(_num(v[0], fills), Const(k))))]
         return [Column(index, f"max(0, {k:.4g} - {v[0]})", Pos(Sub(Const(k), _num(v[0], fills))))]
     if term.kind == "log":
         shift = float(p.get("shift", 0.0))
         node = Log(Sub(_num(v[0], fills), Const(-shift))) if shift else Log(_num(v[0], fills))
-        return [Column(index, f"log({v[0]} + {shift:.4g})" if shift else f"log({v[0]})", node)]
+        return [Column(index, f"log{_offset(v[0], -shift)}" if shift else f"log({v[0]})", node)]
     if term.kind == "categorical":
         return [Column(index, f"[{v[0]} = {level_label(lv)}]", Is(v[0], lv)) for lv in p["levels"][v[0]]]
     if term.kind == "interaction":
@@ -102,7 +107,7 @@ def _interaction_columns(index: int, term: Term, fills: dict, kinds: dict[str, s
     nums = [v for v in term.variables if kinds[v] == "numeric"]
     cats = [v for v in term.variables if kinds[v] == "categorical"]
     num_nodes = [_centred(v, centres.get(v, 0.0), fills) for v in nums]
-    num_label = " * ".join(f"({v} - {centres.get(v, 0.0):.4g})" if centres.get(v) else v for v in nums)
+    num_label = " * ".join(_offset(v, centres[v]) if centres.get(v) else v for v in nums)
     power = int(p.get("power", 1))
     if not cats:
         node: Node = Prod(tuple(num_nodes))
@@ -136,15 +141,9 @@ def formula_piece(term: Term, fills: dict, kinds: dict[str, str]) -> str:
     if term.kind == "categorical":
         return _cat_formula(v[0], term.params["reference"][v[0]])
     if term.kind == "interaction" and any(kinds[x] == "categorical" for x in v):
-        centres = term.params.get("centres", {})
-        parts = []
-        for x in v:
-            if kinds[x] == "categorical":
-                parts.append(_cat_formula(x, term.params["reference"][x]))
-            else:
-                c = centres.get(x, 0.0)
-                parts.append(f"I({formula_name(x)} - {c!r})" if c else formula_name(x))
-        return ":".join(parts)
+        # One product column per non-reference level, spelled out: "x:C(g)" would make the
+        # formula engine choose the coding, and with a centred x it codes every level.
+        return " + ".join(f"I({to_formula(c.node)})" for c in term_columns(0, term, fills, kinds))
     (col,) = term_columns(0, term, fills, kinds)
     # The formula is fitted on imputed data, so inputs print as bare names.
     return f"I({to_formula(col.node)})"
