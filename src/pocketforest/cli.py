@@ -10,6 +10,7 @@ from pathlib import Path
 
 from . import __version__
 from .errors import InputError
+from .defaults import LEAF_BUDGET, TREES
 
 DEMO_DATA = Path(__file__).resolve().parents[2] / "demo_data" / "greenhouse_trial.csv"
 DEMO_TARGET = "yield_kg"
@@ -30,8 +31,11 @@ def _common(p: argparse.ArgumentParser) -> None:
 def _distill_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--out", help="bundle folder (default exports/<data file stem>)")
     p.add_argument("--task", choices=["auto", "regression", "classification"], default="auto")
-    p.add_argument("--trees", type=int, default=500, help="trees in the forest (default 500)")
+    p.add_argument("--trees", type=int, default=TREES, help=f"trees in the forest (default {TREES})")
     p.add_argument("--leaf-size", type=int, default=5, help="minimum rows per forest leaf (default 5)")
+    p.add_argument("--max-leaves", type=int, default=None, metavar="N",
+                   help=f"most leaves per forest tree (default {LEAF_BUDGET:,} / trees, which keeps forest.onnx "
+                        "under about 40 MB at any row count; 0 = no cap)")
     p.add_argument("--tree-depth", type=int, help="surrogate depth (default: smallest reaching the fidelity target)")
     p.add_argument("--fidelity-target", type=float, default=0.9, help="fidelity the default depth must reach")
     p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
@@ -87,8 +91,12 @@ def _run_distill(data: str, target: str, args: argparse.Namespace) -> int:
     from .split import parse_fractions
     from .summary import summary_dict, summary_text
 
-    if getattr(args, "trees", 500) < 1:
-        raise InputError("--trees must be at least 1")
+    if args.trees < 1:
+        raise InputError(f"--trees {args.trees}: the forest needs at least 1 tree")
+    if args.leaf_size < 1:
+        raise InputError(f"--leaf-size {args.leaf_size}: a leaf needs at least 1 row")
+    if args.max_leaves is not None and (args.max_leaves < 0 or args.max_leaves == 1):
+        raise InputError(f"--max-leaves {args.max_leaves}: give 0 (no cap) or at least 2")
     out = args.out or _default_out(data)
     if Path(out).exists() and not args.force:
         raise InputError(f"{out} already exists: choose another --out or pass --force to replace it")
@@ -96,7 +104,8 @@ def _run_distill(data: str, target: str, args: argparse.Namespace) -> int:
     for note in table.notes:
         if not args.quiet:
             print(f"warning: {note}", file=sys.stderr)
-    settings = Settings(trees=args.trees, min_samples_leaf=args.leaf_size, tree_depth=args.tree_depth,
+    settings = Settings(trees=args.trees, min_samples_leaf=args.leaf_size, max_leaves=args.max_leaves,
+                        tree_depth=args.tree_depth,
                         target_fidelity=args.fidelity_target, seed=args.seed, split=parse_fractions(args.split),
                         family=args.family, robust=args.robust, quiet=args.quiet)
     result = distill(table, settings)

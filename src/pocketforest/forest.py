@@ -14,6 +14,7 @@ from sklearn.ensemble import RandomForestClassifier, RandomForestRegressor
 from sklearn.metrics import accuracy_score, mean_squared_error, r2_score
 from sklearn.pipeline import Pipeline
 
+from .defaults import LEAF_BUDGET, TREES, leaf_cap  # noqa: F401 (re-exported)
 from .design import DesignColumn
 from .thresholds import snap_tree_thresholds
 
@@ -37,18 +38,29 @@ class ForestFit:
 
 
 def fit_forest(X: pd.DataFrame, y: np.ndarray, preprocessor, columns: list[DesignColumn], task: str, *,
-               trees: int = 500, min_samples_leaf: int = 5, max_features: float | str | None = None,
-               seed: int = 0, quiet: bool = False, n_jobs: int | None = -1) -> ForestFit:
-    """Fit preprocessing and forest together; grow in chunks so progress can be shown."""
+               trees: int = TREES, min_samples_leaf: int = 5, max_features: float | str | None = None,
+               max_leaves: int | None = None, seed: int = 0, quiet: bool = False,
+               n_jobs: int | None = -1) -> ForestFit:
+    """Fit preprocessing and forest together; grow in chunks so progress can be shown.
+
+    ``max_leaves``: most leaves per tree; None = :func:`leaf_cap` (keeps forest.onnx small),
+    0 = no cap (trees grow until ``min_samples_leaf`` stops them).
+    """
+    if max_leaves is None:
+        n_classes = len(np.unique(y)) if task == "classification" else None
+        max_leaves = leaf_cap(trees, n_classes)
+    max_leaf_nodes = int(max_leaves) if max_leaves and max_leaves > 0 else None
+    if max_leaf_nodes is not None and max_leaf_nodes < 2:
+        raise ValueError("max_leaves must be 0 (no cap) or at least 2")
     if task == "regression":
         max_features = max_features if max_features is not None else 1.0 / 3.0
         forest = RandomForestRegressor(n_estimators=0, min_samples_leaf=min_samples_leaf,
-                                       max_features=max_features, random_state=seed,
+                                       max_features=max_features, max_leaf_nodes=max_leaf_nodes, random_state=seed,
                                        warm_start=True, n_jobs=n_jobs)
     else:
         max_features = max_features if max_features is not None else "sqrt"
         forest = RandomForestClassifier(n_estimators=0, min_samples_leaf=min_samples_leaf,
-                                        max_features=max_features, random_state=seed,
+                                        max_features=max_features, max_leaf_nodes=max_leaf_nodes, random_state=seed,
                                         warm_start=True, n_jobs=n_jobs)
     Xt = preprocessor.fit_transform(X)
     chunk = max(1, min(50, trees))
@@ -75,5 +87,5 @@ def fit_forest(X: pd.DataFrame, y: np.ndarray, preprocessor, columns: list[Desig
         labels = forest.classes_[np.argmax(pred, axis=1)]
         oob = {"error_rate": float(1.0 - accuracy_score(y, labels))}
     settings = {"trees": trees, "min_samples_leaf": min_samples_leaf,
-                "max_features": max_features, "bootstrap": True}
+                "max_features": max_features, "max_leaf_nodes": max_leaf_nodes, "bootstrap": True}
     return ForestFit(pipeline, columns, task, oob, np.asarray(pred), settings)
