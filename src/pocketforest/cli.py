@@ -85,28 +85,39 @@ def _default_out(data: str) -> str:
     return str(Path("exports") / Path(data).stem)
 
 
-def _run_distill(data: str, target: str, args: argparse.Namespace) -> int:
-    from .intake import load
-    from .pipeline import Settings, distill
-    from .split import parse_fractions
-    from .summary import summary_dict, summary_text
-
+def _check_distill_options(args: argparse.Namespace) -> None:
+    """Option mistakes are reported before any data is read or library loaded."""
     if args.trees < 1:
         raise InputError(f"--trees {args.trees}: the forest needs at least 1 tree")
     if args.leaf_size < 1:
         raise InputError(f"--leaf-size {args.leaf_size}: a leaf needs at least 1 row")
     if args.max_leaves is not None and (args.max_leaves < 0 or args.max_leaves == 1):
         raise InputError(f"--max-leaves {args.max_leaves}: give 0 (no cap) or at least 2")
+    if args.tree_depth is not None and args.tree_depth < 1:
+        raise InputError(f"--tree-depth {args.tree_depth}: the surrogate tree needs a depth of at least 1")
+    if not 0.0 < args.fidelity_target <= 1.0:
+        raise InputError(f"--fidelity-target {args.fidelity_target}: give a share between 0 and 1, such as 0.9")
+
+
+def _run_distill(data: str, target: str, args: argparse.Namespace) -> int:
+    from .intake import load
+    from .split import parse_fractions
+
+    _check_distill_options(args)
+    fractions = parse_fractions(args.split)
     out = args.out or _default_out(data)
     if Path(out).exists() and not args.force:
         raise InputError(f"{out} already exists: choose another --out or pass --force to replace it")
     table = load(data, target, task=args.task, categorical=args.categorical, ignore=args.ignore)
+    from .pipeline import Settings, distill
+    from .summary import summary_dict, summary_text
+
     for note in table.notes:
         if not args.quiet:
             print(f"warning: {note}", file=sys.stderr)
     settings = Settings(trees=args.trees, min_samples_leaf=args.leaf_size, max_leaves=args.max_leaves,
                         tree_depth=args.tree_depth,
-                        target_fidelity=args.fidelity_target, seed=args.seed, split=parse_fractions(args.split),
+                        target_fidelity=args.fidelity_target, seed=args.seed, split=fractions,
                         family=args.family, robust=args.robust, quiet=args.quiet)
     result = distill(table, settings)
     path = result.write(out, force=args.force)

@@ -28,6 +28,8 @@ def iter_chunks(path: str | os.PathLike, rows: int = CHUNK_ROWS) -> Iterator[pd.
     """CSV/TSV (all values as text, as intake reads them) or Parquet, a chunk at a time."""
     p = Path(path)
     ext = p.suffix.lower()
+    if p.is_dir():
+        raise InputError(f"{p} is a directory, not a data file: give the path of a .csv, .tsv or .parquet file")
     if not p.is_file():
         raise InputError(f"data file {p} not found: check the path")
     if ext == ".parquet":
@@ -64,9 +66,12 @@ def score_file(bundle: str, data: str, model: str, out: str | None, keep: list[s
     keep = list(keep or [])
     if out is not None and Path(out).suffix.lower() not in (".csv", ".parquet"):
         raise InputError(f"--out {out}: write predictions to a .csv or .parquet file")
+    if out is not None and not Path(out).resolve().parent.is_dir():
+        raise InputError(f"--out {out}: folder {Path(out).parent} does not exist: create it first")
     tmp_path = None
     writer = None
     total = 0
+    outside = 0
     try:
         if out is not None:
             fd, tmp_path = tempfile.mkstemp(prefix=".pf-score-", suffix=Path(out).suffix,
@@ -80,6 +85,7 @@ def score_file(bundle: str, data: str, model: str, out: str | None, keep: list[s
             typed = coerce_for_scoring(chunk, features, source=str(data), first_row=total)
             pred = scorer.columns(typed)
             pred["inputs_outside_training"] = envelope_count(typed, manifest["features"])
+            outside += int((pred["inputs_outside_training"] > 0).sum())
             frame = pd.concat([chunk[keep].reset_index(drop=True), pred.reset_index(drop=True)], axis=1)
             if out is None:
                 frame.to_csv(sys.stdout, index=False, header=first, lineterminator="\n")
@@ -94,7 +100,7 @@ def score_file(bundle: str, data: str, model: str, out: str | None, keep: list[s
                 frame.to_csv(tmp_path, index=False, header=first, mode="w" if first else "a", lineterminator="\n")
             total += len(chunk)
             first = False
-            if not quiet:
+            if not quiet and total:
                 print(f"\rscored {total} rows", end="", file=sys.stderr, flush=True)
         if writer is not None:
             writer.close()
@@ -111,4 +117,8 @@ def score_file(bundle: str, data: str, model: str, out: str | None, keep: list[s
             os.remove(tmp_path)
         if not quiet and total:
             print(file=sys.stderr)
+    if outside and not quiet:
+        print(f"warning: {outside} of {total} rows have inputs outside the training data (a number beyond the "
+              "training range or an unseen category); their predictions are extrapolations: see the "
+              "inputs_outside_training column", file=sys.stderr)
     return total
