@@ -25,9 +25,9 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-FULL = {"rows": 100_000, "columns": 20, "score_rows": 1_000_000, "trees": None, "batch": 10_000,
-        "single_repeats": 300}
-QUICK = {"rows": 2_000, "columns": 20, "score_rows": 20_000, "trees": 20, "batch": 1_000,
+FULL = {"rows": 100_000, "columns": 20, "score_rows": 1_000_000, "trees": None, "bootstrap": None,
+        "batch": 10_000, "single_repeats": 300}
+QUICK = {"rows": 2_000, "columns": 20, "score_rows": 20_000, "trees": 20, "bootstrap": 200, "batch": 1_000,
          "single_repeats": 30}
 REGIONS = ["north", "south", "east", "west", "centre"]
 GRADES = list("ABCDEFGH")
@@ -132,7 +132,8 @@ def _child_distill(config: dict) -> dict:
     t0 = time.perf_counter()
     table = load(config["data"], "y")
     t_read = time.perf_counter() - t0
-    settings = Settings(quiet=True, **({"trees": config["trees"]} if config.get("trees") else {}))
+    given = {k: config[k] for k in ("trees", "bootstrap") if config.get(k)}
+    settings = Settings(quiet=True, **given)
     t1 = time.perf_counter()
     result = distill(table, settings)
     t_distill = time.perf_counter() - t1
@@ -280,6 +281,7 @@ def _measure(size: dict, root: Path, quick: bool, say) -> dict:
     base = _run_child("baseline", {})
     say("distill, bare forest fit, unconstrained forest, prediction speed (one child process)")
     d = _run_child("distill", {"data": str(data), "bundle": str(bundle), "trees": size["trees"],
+                               "bootstrap": size["bootstrap"],
                                "batch": size["batch"], "single_repeats": size["single_repeats"],
                                "batch_sizes": [size["batch"], 1000] if size["batch"] > 1000 else [size["batch"]]})
     score_data = root / "score.csv"
