@@ -1,20 +1,21 @@
 """Forest size defaults, kept free of heavy imports so the command line can print them in --help
 without loading scikit-learn (`score` and `verify` never need it).
 
-Measured choice, see docs/performance.md.
+Measured choice (docs/performance.md): a forest's cost everywhere downstream grows with its node
+count, not its row count. forest.onnx stores about 40 bytes per node (regression and two classes),
+and an onnxruntime session holding it takes about nine times the file size in memory, so the leaf
+budget below is what keeps a bundle small and `score` under 400 MB at any row count.
 """
 from __future__ import annotations
 
 #: Default number of trees. Under a fixed leaf budget, fewer bigger trees beat many small ones on
-#: out-of-bag accuracy (100,000 rows, 32 MB each: 200 x 2,000 leaves r2 0.900, 300 x 1,333 leaves
-#: 0.895, 500 x 800 leaves 0.886), and 200 trees still give permutation importance a stable
-#: standard error.
-TREES = 200
-#: Leaves the whole forest may hold by default. forest.onnx stores about 40 bytes per node
-#: (regression and two classes; measured) and a tree has 2 x leaves - 1 nodes, so 500,000 leaves
-#: keep the file near 40 MB, under the 50 MB a bundle should stay below, however many rows the
-#: data have.
-LEAF_BUDGET = 500_000
+#: out-of-bag accuracy (100,000 rows, same total size: 200 x 2,000 leaves r2 0.900, 300 x 1,333
+#: leaves 0.895, 500 x 800 leaves 0.886; 100 x 2,000 leaves 0.899), and 150 trees still give
+#: permutation importance a standard error over many trees.
+TREES = 150
+#: Leaves the whole forest may hold by default: 300,000 leaves are about 600,000 nodes, a
+#: forest.onnx near 24 MB (target < 50 MB) and an onnxruntime session near 230 MB.
+LEAF_BUDGET = 300_000
 
 
 def leaf_cap(trees: int, n_classes: int | None = None) -> int:
