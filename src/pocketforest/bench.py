@@ -104,7 +104,18 @@ def _run_child(kind: str, config: dict) -> dict:
 
 
 def _maxrss_mb() -> float:
-    """Peak resident memory of this process so far (Linux reports kilobytes)."""
+    """Peak resident memory of this process so far, in MB.
+
+    Linux's ``VmHWM`` belongs to the process's own address space, which ``exec`` renews; the
+    older ``ru_maxrss`` also keeps the parent's resident size from the moment of ``fork``, so a
+    child started by a large parent would report the parent's memory as its own.
+    """
+    try:
+        for line in Path("/proc/self/status").read_text().splitlines():
+            if line.startswith("VmHWM:"):
+                return int(line.split()[1]) / 1024.0
+    except OSError:
+        pass
     import resource
     return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
 

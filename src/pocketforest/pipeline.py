@@ -14,11 +14,11 @@ import numpy as np
 import pandas as pd
 
 from . import __version__
+from .defaults import TREES
 from .design import fill_values, make_preprocessor, model_frame
 from .discovery import Discovery, discover
 from .equation import EquationFit, fit_equation
 from .evaluate import loss_with_interval, metrics
-from .defaults import TREES
 from .forest import ForestFit, fit_forest
 from .importance import Importance, oob_permutation_importance
 from .intake import Table
