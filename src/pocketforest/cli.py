@@ -35,7 +35,7 @@ def _distill_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--leaf-size", type=int, default=5, help="minimum rows per forest leaf (default 5)")
     p.add_argument("--max-leaves", type=int, default=None, metavar="N",
                    help=f"most leaves per forest tree (default {LEAF_BUDGET:,} / trees, which keeps forest.onnx "
-                        "near 24 MB and scoring memory bounded at any row count; 0 = no cap)")
+                        "near 16 MB and scoring memory bounded at any row count; 0 = no cap)")
     p.add_argument("--tree-depth", type=int, help="surrogate depth (default: smallest reaching the fidelity target)")
     p.add_argument("--fidelity-target", type=float, default=0.9, help="fidelity the default depth must reach")
     p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
