@@ -58,3 +58,17 @@ def test_max_leaves_option_reaches_the_manifest(tmp_path):
     assert code == 0
     forest = json.loads((tmp_path / "b" / "manifest.json").read_text())["forest"]
     assert forest["max_leaf_nodes"] == 7 and forest["trees"] == 5
+
+
+def test_parallel_forest_prediction_is_bit_identical_to_scikit_learn():
+    """predict_design sums trees in order; scikit-learn's one-thread predict is the reference."""
+    for task, k in (("regression", 2), ("classification", 3)):
+        df = synthetic_table(800, seed=6, task=task, n_classes=k)
+        t = prepare(df, "y", source="x.csv")
+        prep, cols = make_preprocessor(t.features, t.data)
+        y = t.data["y"].to_numpy()
+        y = y.astype(float) if t.task == "regression" else y.astype(str).astype(object)
+        fit = fit_forest(model_frame(t.data, t.features), y, prep, cols, t.task, trees=40, quiet=True)
+        Xt = prep.transform(model_frame(t.data, t.features))
+        want = fit.model.predict(Xt) if task == "regression" else fit.model.predict_proba(Xt)
+        np.testing.assert_array_equal(fit.predict_design(Xt), want)

@@ -10,6 +10,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
+from joblib import Parallel, delayed
 from sklearn.ensemble import RandomForestClassifier, RandomForestRegressor
 from sklearn.metrics import accuracy_score, mean_squared_error, r2_score
 from sklearn.pipeline import Pipeline
@@ -35,6 +36,30 @@ class ForestFit:
     @property
     def classes(self) -> list[str] | None:
         return [str(c) for c in self.model.classes_] if self.task == "classification" else None
+
+    def predict_design(self, Xt: np.ndarray, n_jobs: int = -1) -> np.ndarray:
+        """Forest output (values, or class probabilities) on an encoded design.
+
+        Trees predict in parallel threads, but their outputs are added in tree order, from zero,
+        then divided by the tree count: exactly what scikit-learn's single-threaded
+        ``predict``/``predict_proba`` computes, bit for bit (its parallel version adds in
+        whatever order threads finish, which changes the last digits from run to run).
+        """
+        X = np.ascontiguousarray(Xt, dtype=np.float32)
+        regression = self.task == "regression"
+        trees = self.model.estimators_
+
+        def one(est):
+            return est.predict(X, check_input=False) if regression else est.predict_proba(X, check_input=False)
+
+        out = np.zeros(len(X) if regression else (len(X), len(self.model.classes_)), dtype=np.float64)
+        block = 32
+        with Parallel(n_jobs=n_jobs, prefer="threads") as pool:
+            for start in range(0, len(trees), block):
+                for part in pool(delayed(one)(e) for e in trees[start:start + block]):
+                    out += part
+        out /= len(trees)
+        return out
 
 
 def fit_forest(X: pd.DataFrame, y: np.ndarray, preprocessor, columns: list[DesignColumn], task: str, *,

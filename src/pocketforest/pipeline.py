@@ -75,7 +75,9 @@ class Distillation:
         if model == "equation":
             return self.equation.predict(data)
         X = model_frame(data, self.table.features)
-        pipe = self.forest.pipeline if model == "forest" else self.tree.pipeline
+        if model == "forest":  # same numbers as the pipeline's predict, on both cores
+            return self.forest.predict_design(self.forest.pipeline.named_steps["prep"].transform(X))
+        pipe = self.tree.pipeline
         return pipe.predict(X) if self.table.task == "regression" else pipe.predict_proba(X)
 
     def write(self, out: str, *, force: bool = False) -> str:
