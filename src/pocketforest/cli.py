@@ -10,6 +10,7 @@ from pathlib import Path
 
 from . import __version__
 from .errors import InputError
+from .defaults import LEAF_BUDGET, TREES
 
 DEMO_DATA = Path(__file__).resolve().parents[2] / "demo_data" / "greenhouse_trial.csv"
 DEMO_TARGET = "yield_kg"
@@ -30,8 +31,11 @@ def _common(p: argparse.ArgumentParser) -> None:
 def _distill_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--out", help="bundle folder (default exports/<data file stem>)")
     p.add_argument("--task", choices=["auto", "regression", "classification"], default="auto")
-    p.add_argument("--trees", type=int, default=500, help="trees in the forest (default 500)")
+    p.add_argument("--trees", type=int, default=TREES, help=f"trees in the forest (default {TREES})")
     p.add_argument("--leaf-size", type=int, default=5, help="minimum rows per forest leaf (default 5)")
+    p.add_argument("--max-leaves", type=int, default=None, metavar="N",
+                   help=f"most leaves per forest tree (default {LEAF_BUDGET:,} / trees, which keeps forest.onnx "
+                        "near 16 MB and scoring memory bounded at any row count; 0 = no cap)")
     p.add_argument("--tree-depth", type=int, help="surrogate depth (default: smallest reaching the fidelity target)")
     p.add_argument("--fidelity-target", type=float, default=0.9, help="fidelity the default depth must reach")
     p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
@@ -104,30 +108,45 @@ def _default_out(data: str) -> str:
     return str(Path("exports") / Path(data).stem)
 
 
+def _check_distill_options(args: argparse.Namespace) -> None:
+    """Option mistakes are reported before any data is read or library loaded."""
+    if args.trees < 1:
+        raise InputError(f"--trees {args.trees}: the forest needs at least 1 tree")
+    if args.leaf_size < 1:
+        raise InputError(f"--leaf-size {args.leaf_size}: a leaf needs at least 1 row")
+    if args.max_leaves is not None and (args.max_leaves < 0 or args.max_leaves == 1):
+        raise InputError(f"--max-leaves {args.max_leaves}: give 0 (no cap) or at least 2")
+    if args.tree_depth is not None and args.tree_depth < 1:
+        raise InputError(f"--tree-depth {args.tree_depth}: the surrogate tree needs a depth of at least 1")
+    if not 0.0 < args.fidelity_target <= 1.0:
+        raise InputError(f"--fidelity-target {args.fidelity_target}: give a share between 0 and 1, such as 0.9")
+
+
 def _run_distill(data: str, target: str, args: argparse.Namespace) -> int:
     from .intake import load
-    from .pipeline import Settings, distill
     from .split import parse_fractions
-    from .summary import summary_dict, summary_text
 
-    if getattr(args, "trees", 500) < 1:
-        raise InputError("--trees must be at least 1")
-    if getattr(args, "synthetic_rows", 0) < 0:
+    _check_distill_options(args)
+    if args.synthetic_rows < 0:
         raise InputError(f"--synthetic-rows {args.synthetic_rows} is negative: give 0 or more rows")
-    if getattr(args, "max_terms", None) is not None and args.max_terms < 1:
-        raise InputError("--max-terms must be at least 1")
+    if args.max_terms is not None and args.max_terms < 1:
+        raise InputError(f"--max-terms {args.max_terms}: give at least 1")
+    fractions = parse_fractions(args.split)
     out = args.out or _default_out(data)
     if Path(out).exists() and not args.force:
         raise InputError(f"{out} already exists: choose another --out or pass --force to replace it")
     table = load(data, target, task=args.task, categorical=args.categorical, ignore=args.ignore)
     from .discovery import check_requests
-    check_requests({f.name: f.kind for f in table.features}, getattr(args, "keep_var", []),
-                   getattr(args, "drop_var", []), getattr(args, "max_terms", None))
+    check_requests({f.name: f.kind for f in table.features}, args.keep_var, args.drop_var, args.max_terms)
+    from .pipeline import Settings, distill
+    from .summary import summary_dict, summary_text
+
     for note in table.notes:
         if not args.quiet:
             print(f"warning: {note}", file=sys.stderr)
-    settings = Settings(trees=args.trees, min_samples_leaf=args.leaf_size, tree_depth=args.tree_depth,
-                        target_fidelity=args.fidelity_target, seed=args.seed, split=parse_fractions(args.split),
+    settings = Settings(trees=args.trees, min_samples_leaf=args.leaf_size, max_leaves=args.max_leaves,
+                        tree_depth=args.tree_depth,
+                        target_fidelity=args.fidelity_target, seed=args.seed, split=fractions,
                         family=args.family, robust=args.robust, quiet=args.quiet,
                         synthetic_rows=args.synthetic_rows, cap_terms=not args.no_term_cap,
                         max_terms=args.max_terms, keep_vars=tuple(args.keep_var), drop_vars=tuple(args.drop_var))

@@ -344,9 +344,30 @@ def _finish_csv_frame(df: pd.DataFrame, header: list[str], p: Path) -> pd.DataFr
     if len(df.columns) != len(header):  # defensive: pandas and csv disagree on the header
         raise InputError(f"{p}: header has {len(header)} names but pandas found {len(df.columns)} columns: check quoting in the first line")
     df.columns = header
+    _check_short_rows(df, p)
     for col in header:
         df[col] = _clean_text(df[col])
     return df
+
+
+def _check_short_rows(df: pd.DataFrame, p: Path) -> None:
+    """A row whose whole text landed in the first column and holds another delimiter was written
+    with a different separator; pandas would quietly pad it with empty cells."""
+    if df.shape[1] < 2 or len(df) == 0:
+        return
+    first = df.iloc[:, 0].astype(str)
+    rest_empty = (df.iloc[:, 1:].astype(str) == "").all(axis=1)
+    if not rest_empty.any():
+        return
+    own = _EXTENSIONS.get(p.suffix.lower())
+    for other in (o for o in (";", "\t", "|", ",") if o != own):
+        hit = (rest_empty & first.str.contains(other, regex=False)).to_numpy()
+        if hit.any():
+            line = int(np.flatnonzero(hit)[0]) + 2
+            raise InputError(
+                f"{p}: line {line} holds one field with '{_printable(other)}' in it while the header has "
+                f"{df.shape[1]} columns: the file mixes delimiters; re-save it with one delimiter throughout"
+            )
 
 
 def _read_parquet(p: Path, columns: Sequence[str] | None = None) -> pd.DataFrame:
@@ -691,6 +712,11 @@ def _target(
     if task == "regression":
         if distinct < 2:
             raise InputError(f"{source}: target '{target}' has the same value in every row: nothing to predict; choose another --target")
+        if _is_row_counter(values, bad):
+            raise InputError(
+                f"{source}: target '{target}' goes up by exactly 1 on every row: it is a row number or id, "
+                "not an outcome; choose another --target"
+            )
         return task, pd.Series(values, dtype="float64"), None
 
     labels = _category_series(pd.Series(values) if numeric else y)

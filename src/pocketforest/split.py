@@ -9,7 +9,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from sklearn.model_selection import train_test_split
 
 from .errors import InputError
 
@@ -48,6 +47,8 @@ def make_splits(n_rows: int, fractions: tuple[float, float, float], seed: int,
     if min(n_test, n_conf, n_rows - n_test - n_conf) < 10:
         raise InputError(f"too few rows ({n_rows}) for the splits {d:.2f}/{c:.2f}/{t:.2f}: "
                          "each part needs at least 10 rows; add rows or change --split")
+    from sklearn.model_selection import train_test_split  # here, so `--split` is checked without loading it
+
     try:
         rest, test = train_test_split(idx, test_size=n_test, random_state=seed,
                                       stratify=None if strata is None else strata)
