@@ -130,7 +130,7 @@ def _run_distill(data: str, target: str, args: argparse.Namespace) -> int:
     if args.synthetic_rows < 0:
         raise InputError(f"--synthetic-rows {args.synthetic_rows} is negative: give 0 or more rows")
     if args.max_terms is not None and args.max_terms < 1:
-        raise InputError(f"--max-terms {args.max_terms}: give at least 1")
+        raise InputError("--max-terms must be at least 1")
     fractions = parse_fractions(args.split)
     out = args.out or _default_out(data)
     if Path(out).exists() and not args.force:

@@ -147,7 +147,7 @@ def score_file(bundle: str, data: str, model: str, out: str | None, keep: list[s
                 frame.to_csv(tmp_path, index=False, header=(first_row == 0), mode="w" if first_row == 0 else "a",
                              lineterminator="\n")
             total += len(chunk)
-            if not quiet:
+            if not quiet and total:
                 print(f"\rscored {total:,} rows", end="", file=sys.stderr, flush=True)
         if sink is not None:
             sink.close()

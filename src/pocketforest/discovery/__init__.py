@@ -161,7 +161,8 @@ def check_requests(kinds: dict, keep, drop, max_terms) -> None:
 
 def _numeric_shape(forest, task, predict, predict_link, Xt, pd_rows, ale_rows, col, correlated) -> dict:
     x = Xt[:, col]
-    grid = quantile_grid(x, 25)
+    # the grid is recorded to 6 decimals, so compute on exactly the recorded values
+    grid = np.unique(np.round(quantile_grid(x, 25), 6))
     if len(grid) < 2:
         return {"kind": "numeric", "grid": grid.tolist(), "pd": [], "chosen": "linear",
                 "note": "too few distinct values for a curve"}
