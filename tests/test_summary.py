@@ -59,3 +59,18 @@ def test_open_command_per_platform():
     assert open_command("b/report.html", "darwin") == "open b/report.html"
     assert open_command("my bundle/report.html", "linux") == "xdg-open 'my bundle/report.html'"
     assert open_command("b\\report.html", "win32").startswith('start "" ')
+
+
+def test_classification_columns_never_run_together():
+    """Every fidelity and loss cell is separated from its neighbours, whatever its length."""
+    from pocketforest.summary import format_summary
+    metrics = {"accuracy": 0.7, "log_loss": 0.55, "brier": 0.18, "auc": 0.8}
+    d = {"target": "t", "task": "classification", "splits": {"discovery": 10, "confirmation": 5, "test": 5},
+         "evaluation": {"n": 5, "forest": metrics, "tree": metrics, "equation": metrics},
+         "fidelity": {m: {"agreement": 0.843, "kappa": 0.684} for m in ("tree", "equation")},
+         "loss": {m: {"metric": "accuracy", "value": 0.0347, "ci_low": 0.0053, "ci_high": 0.0627}
+                  for m in ("tree", "equation")},
+         "formula": "t ~ x", "tree": {"depth": 2, "leaves": 4}, "warnings": [], "bundle": "b",
+         "open_report": "o", "verify": "v"}
+    text = format_summary(d)
+    assert "0.8000    agreement 0.843, kappa 0.684    accuracy +0.0347 (+0.0053 to +0.0627)" in text

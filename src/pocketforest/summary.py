@@ -46,17 +46,21 @@ def format_summary(d: dict) -> str:
     sp = d["splits"]
     lines = [f"pocketforest: {d['target']} ({d['task']}); rows {sp['discovery']} discovery / "
              f"{sp['confirmation']} confirmation / {sp['test']} test", ""]
-    head = f"{'on ' + str(ev['n']) + ' test rows':<16}" + "".join(f"{n:>{width}}" for n in names)
-    lines += [head + f"{'fidelity':>22}{'loss (95% interval)':>34}", "-" * (len(head) + 56)]
+    fid, loss = {"forest": "(reference)"}, {"forest": ""}
+    for m in MODELS[1:]:
+        fid[m] = ", ".join(f"{k} {_f(v, '.3f')}" for k, v in d["fidelity"][m].items())
+        lo = d["loss"][m]
+        loss[m] = (f"{lo['metric']} {_f(lo['value'], '+.4f')} "
+                   f"({_f(lo['ci_low'], '+.4f')} to {_f(lo['ci_high'], '+.4f')})")
+    fid_w = max(len("fidelity"), *(len(v) for v in fid.values()))
+    loss_w = max(len("loss (95% interval)"), *(len(v) for v in loss.values()))
+    head = (f"{'on ' + str(ev['n']) + ' test rows':<16}" + "".join(f"{n:>{width}}" for n in names)
+            + f"    {'fidelity':<{fid_w}}    {'loss (95% interval)':<{loss_w}}")
+    head = head.rstrip()
+    lines += [head, "-" * len(head)]
     for m in MODELS:
         row = f"{m:<16}" + "".join(f"{_f(ev[m][n], '.4f'):>{width}}" for n in names)
-        if m == "forest":
-            row += f"{'(reference)':>22}"
-        else:
-            fid = ", ".join(f"{k} {_f(v, '.3f')}" for k, v in d["fidelity"][m].items())
-            lo = d["loss"][m]
-            row += f"{fid:>22}" + f"{lo['metric']} {_f(lo['value'], '+.4f')} ({_f(lo['ci_low'], '+.4f')} to {_f(lo['ci_high'], '+.4f')})".rjust(34)
-        lines.append(row)
+        lines.append((row + f"    {fid[m]:<{fid_w}}    {loss[m]:<{loss_w}}").rstrip())
     lines += ["", f"equation: {d['formula']}", f"tree:     depth {d['tree']['depth']}, {d['tree']['leaves']} leaves"]
     if d.get("warnings"):
         n = len(d["warnings"])
