@@ -11,7 +11,6 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
-from joblib import Parallel, delayed
 from sklearn.ensemble import RandomForestClassifier, RandomForestRegressor
 from sklearn.metrics import accuracy_score, mean_squared_error, r2_score
 from sklearn.pipeline import Pipeline
@@ -19,6 +18,7 @@ from sklearn.pipeline import Pipeline
 from .defaults import LEAF_BUDGET, TREES, leaf_cap  # noqa: F401 (re-exported)
 from .design import DesignColumn
 from .thresholds import snap_tree_thresholds
+from .threads import thread_map
 
 
 @dataclass
@@ -55,10 +55,9 @@ class ForestFit:
 
         out = np.zeros(len(X) if regression else (len(X), len(self.model.classes_)), dtype=np.float64)
         block = 32
-        with Parallel(n_jobs=n_jobs, prefer="threads") as pool:
-            for start in range(0, len(trees), block):
-                for part in pool(delayed(one)(e) for e in trees[start:start + block]):
-                    out += part
+        for start in range(0, len(trees), block):
+            for part in thread_map(one, trees[start:start + block], n_jobs):
+                out += part
         out /= len(trees)
         return out
 

@@ -10,10 +10,10 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from joblib import Parallel, delayed
 from sklearn.ensemble._forest import _generate_unsampled_indices, _get_n_samples_bootstrap
 
 from .forest import ForestFit
+from .threads import thread_map
 
 
 @dataclass(frozen=True)
@@ -56,8 +56,8 @@ def oob_permutation_importance(fit: ForestFit, Xt: np.ndarray, y: np.ndarray, fe
     for est, rows in zip(forest.estimators_, oob_rows(forest, len(y))):
         perm = rng.permutation(len(rows)) if len(rows) >= 2 else None
         jobs.append((est, rows, perm))
-    rows_out = Parallel(n_jobs=n_jobs, prefer="threads")(
-        delayed(_tree_increases)(est, Xt, target, rows, perm, groups, fit.task) for est, rows, perm in jobs)
+    rows_out = thread_map(_tree_increases, [(est, Xt, target, rows, perm, groups, fit.task)
+                                            for est, rows, perm in jobs], n_jobs)
     increases = np.array(rows_out).reshape(len(jobs), len(features))
     mean = increases.mean(axis=0)
     se = increases.std(axis=0, ddof=1) / np.sqrt(len(increases))

@@ -15,12 +15,12 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-from joblib import Parallel, delayed
 from sklearn.metrics import cohen_kappa_score, r2_score
 from sklearn.pipeline import Pipeline
 from sklearn.tree import DecisionTreeClassifier, DecisionTreeRegressor
 
 from .forest import ForestFit
+from .threads import thread_map
 from .thresholds import snap_tree_thresholds
 
 DEPTHS = range(1, 9)
@@ -131,8 +131,7 @@ def distill_tree(forest: ForestFit, X_fit: pd.DataFrame, X_choose: pd.DataFrame,
     labels = getattr(forest.model, "classes_", None)
     # The depths are independent fits with their own seed: grow them in parallel threads
     # (scikit-learn's tree builder releases the GIL); results do not depend on the order.
-    fitted = Parallel(n_jobs=-1, prefer="threads")(
-        delayed(_fit_tree)(Xf, yf, forest.task, d, seed, min_leaf, labels) for d in DEPTHS)
+    fitted = thread_map(_fit_tree, [(Xf, yf, forest.task, d, seed, min_leaf, labels) for d in DEPTHS], -1)
     for d, tree in zip(DEPTHS, fitted):
         trees[d] = tree
         pc = tree.predict(Xc) if forest.task == "regression" else tree.predict_proba(Xc)
