@@ -172,6 +172,23 @@ def _row_id(features: list[dict]) -> str:
     return rid
 
 
+def _query(con, create: str, insert: str, values, statement: str, errors, label: str):
+    """Load the rows into ``input_rows``, run the one statement, and count the rows left after it."""
+    try:
+        con.execute(create)
+        con.executemany(insert, values)
+        try:
+            cur = con.execute(statement)
+        except errors as exc:
+            raise RunnerFailed(f"{label}: {exc}") from None
+        names = [d[0] for d in cur.description]
+        result = pd.DataFrame(cur.fetchall(), columns=names)
+        intact = con.execute("SELECT COUNT(*) FROM input_rows").fetchone()[0]
+    finally:
+        con.close()
+    return result, intact
+
+
 def run_sql(engine: str, statement: str, frame: pd.DataFrame, features: list[dict]) -> pd.DataFrame:
     """Run the export's SELECT on a table ``input_rows`` holding ``frame``'s feature columns
     (numbers as DOUBLE, categories as text, missing as NULL) plus a row number; the result keeps
@@ -183,19 +200,9 @@ def run_sql(engine: str, statement: str, frame: pd.DataFrame, features: list[dic
     create = "CREATE TABLE input_rows (" + ", ".join(f"{sql_ident(n)} {t}" for n, t in cols) + ")"
     insert = "INSERT INTO input_rows VALUES (" + ", ".join("?" for _ in cols) + ")"
     if engine == "sqlite":
-        con = sqlite3.connect(":memory:")
-        try:
-            con.execute(create)
-            con.executemany(insert, values)
-            try:
-                cur = con.execute(statement)  # sqlite3 refuses more than one statement
-            except (sqlite3.Error, sqlite3.Warning) as exc:
-                raise RunnerFailed(f"SQLite {sqlite3.sqlite_version}: {exc}") from None
-            names = [d[0] for d in cur.description]
-            result = pd.DataFrame(cur.fetchall(), columns=names)
-            intact = con.execute("SELECT COUNT(*) FROM input_rows").fetchone()[0]
-        finally:
-            con.close()
+        # sqlite3 refuses more than one statement in execute()
+        result, intact = _query(sqlite3.connect(":memory:"), create, insert, values, statement,
+                                (sqlite3.Error, sqlite3.Warning), f"SQLite {sqlite3.sqlite_version}")
     elif engine == "duckdb":
         import duckdb
         try:
@@ -204,19 +211,8 @@ def run_sql(engine: str, statement: str, frame: pd.DataFrame, features: list[dic
             raise RunnerFailed(f"DuckDB {duckdb.__version__}: {exc}") from None
         if len(parsed) != 1 or parsed[0].type != duckdb.StatementType.SELECT:
             raise RunnerFailed(f"the SQL file holds {len(parsed)} statement(s), not one SELECT: refusing to run it")
-        con = duckdb.connect(":memory:")
-        try:
-            con.execute(create)
-            con.executemany(insert, values)
-            try:
-                cur = con.execute(statement)
-            except duckdb.Error as exc:
-                raise RunnerFailed(f"DuckDB {duckdb.__version__}: {exc}") from None
-            names = [d[0] for d in cur.description]
-            result = pd.DataFrame(cur.fetchall(), columns=names)
-            intact = con.execute("SELECT COUNT(*) FROM input_rows").fetchone()[0]
-        finally:
-            con.close()
+        result, intact = _query(duckdb.connect(":memory:"), create, insert, values, statement,
+                                duckdb.Error, f"DuckDB {duckdb.__version__}")
     else:
         raise ValueError(engine)
     if intact != len(frame):
