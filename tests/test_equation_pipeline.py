@@ -13,10 +13,10 @@ from pocketforest.pipeline import Settings, distill
 from pocketforest.verify import verify_bundle
 
 
-def _counts(n=400, seed=0):
+def _counts(n=400, seed=0, base=0.2):
     rng = np.random.default_rng(seed)
     df = pd.DataFrame({"dose": rng.uniform(0, 2, n), "site": rng.choice(["a", "b"], n), "noise": rng.normal(size=n)})
-    df["events"] = rng.poisson(np.exp(0.2 + 0.8 * df.dose + 0.4 * (df.site == "b")))
+    df["events"] = rng.poisson(np.exp(base + 0.8 * df.dose + 0.4 * (df.site == "b")))
     return df
 
 
@@ -37,8 +37,9 @@ def test_poisson_equation_end_to_end_passes_verify(tmp_path):
 
 def test_equation_sees_only_the_confirmation_rows():
     df = _counts(seed=1)
-    result = distill(prepare(df, "events", task="regression"), Settings(trees=20, seed=4, quiet=True, bootstrap=100))
-    eq = result.equation
+    result = distill(prepare(df, "events", task="regression"),
+                     Settings(trees=20, seed=4, quiet=True, bootstrap=100, family="gaussian"))
+    eq = result.equation.inference           # the table for the paper
     assert eq.fit_on == "confirmation" and eq.n == len(result.splits.confirmation)
     conf = df.iloc[result.splits.confirmation].reset_index(drop=True)
     # refitting the equation's own formula on exactly those rows reproduces the coefficients;
@@ -50,9 +51,30 @@ def test_equation_sees_only_the_confirmation_rows():
     other = df.iloc[result.splits.test].reset_index(drop=True)
     assert not np.isclose(smf.ols(eq.formula, other).fit().params.iloc[0], eq.table[0]["estimate"])
     assert "Cox 1975" in eq.note
+    # The exported coefficients: the same formula re-estimated on discovery + confirmation rows
+    # (least squares here: 300 rows carry 3 coefficients easily), statsmodels as the reference.
+    scoring = result.equation
+    both = df.iloc[np.sort(np.r_[result.splits.discovery, result.splits.confirmation])]
+    assert scoring.fit_on == "discovery+confirmation" and scoring.n == len(both)
+    assert scoring.method == "least squares"
+    ref2 = smf.ols(eq.formula, both.reset_index(drop=True)).fit()
+    np.testing.assert_allclose(sorted(scoring.coef), sorted(ref2.params), rtol=1e-8)
+
+
+def test_count_outcome_gets_the_poisson_family_by_default():
+    """Constructed Poisson counts (many zeros at low dose): the default family is Poisson with a
+    log link, and the manifest says so (Cameron & Trivedi 2013: counts are not Gaussian)."""
+    df = _counts(seed=2, base=-0.5)
+    assert (df.events == 0).mean() > 0.1
+    result = distill(prepare(df, "events", task="regression"), Settings(trees=20, seed=4, quiet=True, bootstrap=100))
+    assert result.equation.family == "poisson" and result.equation.link == "log"
+    assert any("Poisson GLM with a log link by default" in n for n in result.equation.notes)
+    assert np.all(result.predict(df, "equation") > 0)
 
 
 def test_multiclass_bundle_manifest_states_the_note(bundles):
     m = json.loads((bundles["multiclass"] / "manifest.json").read_text())
-    assert "confirmation rows" in m["equation"]["note"] and m["equation"]["method"] == "maximum likelihood"
+    assert "confirmation rows" in m["equation"]["note"]
+    assert m["equation"]["method"] in ("maximum likelihood", "Firth penalised likelihood")
+    assert m["equation"]["scoring"]["fit_on"] == "discovery+confirmation"
     assert all(c.ok for c in verify_bundle(bundles["multiclass"]))

@@ -89,17 +89,13 @@ def _manifest(r, created: str, nodes) -> dict:
         "splits": r.splits.sizes(),
         "forest": {"trees": r.settings.trees, **{k: v for k, v in r.forest.settings.items() if k != "trees"},
                    "oob": r.forest.oob},
-        "importance_metric": "mse_increase" if t.task == "regression" else "error_rate_increase",
+        "importance_metric": "mse_increase" if t.task == "regression" else "brier_increase",
         "importance": [i.to_dict() for i in r.importance],
         "interactions": r.discovery.interactions,
         "discovery": r.discovery.to_dict(),
         "terms": [term.to_dict() for term in r.equation.terms],
         "formula": r.equation.formula,
-        "equation": {"family": r.equation.family, "link": r.equation.link, "fit_on": r.equation.fit_on,
-                     "n": r.equation.n, "coefficients": r.equation.table,
-                     "block_test": r.equation.block_test, "method": r.equation.method,
-                     "note": r.equation.note,
-                     "dropped_terms": [t.to_dict() for t in r.equation.dropped_terms]},
+        "equation": _equation_section(r.equation),
         "tree": {"depth": r.tree.depth, "leaves": r.tree.leaves, "chosen_by": r.tree.chosen_by,
                  "fidelity_by_depth": r.tree.fidelity_by_depth, "synthetic_rows": r.tree.synthetic_rows},
         "evaluation": r.evaluation,
@@ -110,6 +106,20 @@ def _manifest(r, created: str, nodes) -> dict:
     if classes is not None:
         m["classes"] = classes
     return _clean(m)
+
+
+def _equation_section(eq) -> dict:
+    """For the paper: the confirmation fit's table, p-values and block test. For scoring: the
+    coefficients every export carries, and which rows estimated them."""
+    paper = eq.inference or eq
+    out = {"family": eq.family, "link": eq.link, "fit_on": paper.fit_on, "n": paper.n,
+           "coefficients": paper.table, "block_test": paper.block_test, "method": paper.method,
+           "note": eq.note, "dropped_terms": [t.to_dict() for t in paper.dropped_terms]}
+    out["scoring"] = {"fit_on": eq.fit_on, "n": eq.n, "method": eq.method, "tuning": eq.tuning,
+                      "coefficients": [{"term": c["term"], "estimate": c["estimate"],
+                                        **({"class": c["class"]} if "class" in c else {})} for c in eq.table],
+                      "same_as_inference": eq.inference is None}
+    return out
 
 
 def _training_profile(f, rows) -> dict:

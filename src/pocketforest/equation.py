@@ -6,13 +6,21 @@ rows that chose the terms are too small (Berk, Brown, Buja, Zhang & Zhao 2013, A
 41:802-837; :mod:`pocketforest.simulate` measures both). Families follow McCullagh & Nelder
 (1989): Gaussian/identity, binomial/logit, multinomial logit, Poisson/log for counts.
 
-Small confirmation sets get two safeguards: the equation's size is capped at about ten rows (ten
-rows of the rarer class) per estimated coefficient (Peduzzi et al. 1996, J Clin Epidemiol
-49:1373-1379, a rule of thumb), and separated classes are fitted by Firth's penalised likelihood
-(:mod:`pocketforest.separation`) instead of running to infinite estimates.
+The equation's size follows what the rows support (:mod:`pocketforest.sizing`, after Riley et
+al. 2020): where the suggested terms need more coefficients than the confirmation rows carry at an
+expected shrinkage of 0.9, logistic and multinomial fits are penalised (Firth 1993) instead of
+cut; terms are dropped only when the rows cannot estimate them at all. Separated classes are
+fitted by Firth's penalised likelihood (:mod:`pocketforest.separation`) too.
+
+The coefficients *exported for scoring* are the same terms re-estimated on the discovery and
+confirmation rows together (:func:`refit_for_scoring`): more rows, better predictions, while the
+inferential table stays that of the confirmation rows alone. Where those rows do not support the
+terms either, the Gaussian refit is a ridge regression with its penalty chosen by generalised
+cross-validation, and the logistic refit is Firth's.
 """
 from __future__ import annotations
 
+import dataclasses
 import warnings
 from dataclasses import dataclass, field
 
@@ -25,11 +33,19 @@ from scipy import stats
 from .errors import InputError
 from .expr import evaluate
 from .separation import firth_fit, is_separated
+from .sizing import estimable_coefficients, supported_coefficients
 from .terms import Column, Term, design_columns, formula, resolve_levels, term_columns
 
-FAMILIES = ("gaussian", "binomial", "multinomial", "poisson")
-LINKS = {"gaussian": "identity", "binomial": "logit", "multinomial": "logit", "poisson": "log"}
-ROWS_PER_COEFFICIENT = 10   # Peduzzi et al. (1996): events per variable, a rule of thumb
+FAMILIES = ("gaussian", "binomial", "multinomial", "poisson", "negative_binomial")
+LINKS = {"gaussian": "identity", "binomial": "logit", "multinomial": "logit", "poisson": "log",
+         "negative_binomial": "log"}
+#: A whole-number outcome with at least this share of zeros is fitted as counts by default
+#: (Cameron & Trivedi 2013, Regression Analysis of Count Data, ch. 3: a Gaussian model for such
+#: outcomes predicts negative values and misstates the variance; the cut itself is common practice).
+COUNT_ZERO_SHARE = 0.10
+#: Pearson chi-square / residual df above which a Poisson fit's variance is too small and a
+#: negative binomial is suggested (common practice: 1 means no overdispersion).
+OVERDISPERSION = 2.0
 LP_MAX_ROWS = 20_000        # separation checked up front below this many rows x (K - 1)
 
 
@@ -53,6 +69,11 @@ class EquationFit:
     method: str = "maximum likelihood"
     dropped_terms: list[Term] = field(default_factory=list)
     summary_text: str = ""
+    #: The confirmation-row fit whose table, p-values and block test are for the paper, when these
+    #: coefficients were re-estimated on more rows for scoring (None: this fit is both).
+    inference: "EquationFit | None" = None
+    #: How the coefficients were estimated when penalised: {"method", "penalty", ...}.
+    tuning: dict = field(default_factory=dict)
 
     @property
     def note(self) -> str:
@@ -93,11 +114,11 @@ def _impute(data: pd.DataFrame, fills: dict, kinds: dict) -> pd.DataFrame:
 def check_family(family: str | None, task: str, classes: list[str] | None, y: np.ndarray, target: str) -> str:
     """The family to fit, or one-line InputError when it does not suit the outcome."""
     if family is None:
-        return _default_family(task, classes)
+        return default_family(task, classes, y)
     if family not in FAMILIES:
         raise InputError(f"--family {family!r} is unknown: choose one of {', '.join(FAMILIES)}")
     if task == "classification":
-        if family in ("gaussian", "poisson"):
+        if family in ("gaussian", "poisson", "negative_binomial"):
             raise InputError(f"--family {family} needs a numeric outcome, but {target!r} is treated as classes: "
                              "use --family binomial/multinomial or --task regression")
         if family == "binomial" and len(classes) != 2:
@@ -107,18 +128,26 @@ def check_family(family: str | None, task: str, classes: list[str] | None, y: np
     if family in ("binomial", "multinomial"):
         raise InputError(f"--family {family} needs classes, but {target!r} is treated as a number: "
                          "pass --task classification")
-    if family == "poisson":
+    if family in ("poisson", "negative_binomial"):
         v = np.asarray(y, dtype=float)
         bad = ~np.isfinite(v) | (v < 0) | (v != np.round(v))
         if bad.any():
-            raise InputError(f"--family poisson needs counts, but {target!r} has the value "
-                             f"{float(v[np.argmax(bad)])!r}: give a non-negative whole-number outcome or drop --family poisson")
+            raise InputError(f"--family {family} needs counts, but {target!r} has the value "
+                             f"{float(v[np.argmax(bad)])!r}: give a non-negative whole-number outcome or drop --family {family}")
     return family
 
 
-def _default_family(task: str, classes: list[str] | None) -> str:
+def is_count(y: np.ndarray) -> bool:
+    """A non-negative whole-number outcome with many zeros (see :data:`COUNT_ZERO_SHARE`)."""
+    v = np.asarray(y, dtype=float)
+    if len(v) == 0 or not np.all(np.isfinite(v)) or (v < 0).any() or (v != np.round(v)).any():
+        return False
+    return bool(np.mean(v == 0) >= COUNT_ZERO_SHARE and len(np.unique(v)) >= 3)
+
+
+def default_family(task: str, classes: list[str] | None, y: np.ndarray | None = None) -> str:
     if task == "regression":
-        return "gaussian"
+        return "poisson" if y is not None and is_count(y) else "gaussian"
     return "binomial" if len(classes) == 2 else "multinomial"
 
 
@@ -176,28 +205,37 @@ def cap_terms(terms: list[Term], budget: int, fills: dict, kinds: dict) -> tuple
 
 
 def coefficient_budget(y_codes: np.ndarray, family: str, n_classes: int) -> tuple[int, str]:
-    """Coefficients per equation (besides the intercept) the confirmation rows can carry."""
+    """Coefficients per equation (besides the intercept) the rows can estimate at all."""
     n = len(y_codes)
     if family in ("binomial", "multinomial"):
         counts = np.bincount(y_codes.astype(int), minlength=n_classes)
         events = int(counts.min())
-        return max(1, events // ROWS_PER_COEFFICIENT), f"{events} rows of the rarest class"
-    return max(1, n // ROWS_PER_COEFFICIENT), f"{n} rows"
+        return estimable_coefficients(n, events), f"{events} rows of the rarest class"
+    return estimable_coefficients(n), f"{n} rows"
 
 
 def fit_equation(terms: list[Term], data: pd.DataFrame, y: np.ndarray, *, task: str, target: str,
                  fills: dict, kinds: dict, classes: list[str] | None, family: str | None = None,
                  robust: bool = False, fit_on: str = "confirmation",
-                 baseline: list[Term] | None = None, cap: bool = False) -> EquationFit:
+                 baseline: list[Term] | None = None, cap: bool = False,
+                 anticipated_r2: float | None = None) -> EquationFit:
     """Fit the formula on ``data`` (the confirmation rows) and map coefficients to terms.
 
     ``baseline`` (the main effects) defines the block test: one test of every suggested term
-    beyond the baseline, on the same rows. ``cap`` applies the rows-per-coefficient rule.
+    beyond the baseline, on the same rows. ``cap`` drops the weakest terms only when the rows
+    cannot estimate them at all; ``anticipated_r2`` (the forest's out-of-bag figure) switches a
+    logistic fit to Firth's penalty when the terms need more coefficients than the rows support
+    (:mod:`pocketforest.sizing`).
     """
     family = check_family(family, task, classes, y, target)
     notes: list[str] = []
     warn: list[str] = []
     terms = resolve_levels(terms, data, kinds)
+    empty = [t for i, t in enumerate(terms) if not term_columns(i, t, fills, kinds)]
+    if empty:   # per-level products whose levels these rows lack
+        terms = [t for t in terms if t not in empty]
+        notes.append(f"{len(empty)} term(s) have no rows of their levels among the {fit_on} rows and were left out: "
+                     + ", ".join(_describe(t) for t in empty) + ".")
     frame = _impute(data[[k for k in kinds]], fills, kinds)
     response = "__response__"
     frame[response] = _response(y, task, classes)
@@ -213,9 +251,9 @@ def fit_equation(terms: list[Term], data: pd.DataFrame, y: np.ndarray, *, task: 
         need = len(design_columns(terms, fills, kinds))
         if need > budget:
             terms, dropped = cap_terms(terms, budget, fills, kinds)
-            msg = (f"The {fit_on} rows ({basis}) support about {budget} coefficient(s) per equation at "
-                   f"{ROWS_PER_COEFFICIENT} rows each (Peduzzi et al. 1996, a rule of thumb), the suggested "
-                   f"terms need {need}: dropped the {len(dropped)} weakest, keeping hierarchy: "
+            msg = (f"The {fit_on} rows ({basis}) can estimate at most about {budget} coefficient(s) per equation "
+                   f"even with a penalty, the suggested terms need {need}: dropped the {len(dropped)} weakest, "
+                   "keeping hierarchy: "
                    + ", ".join(_describe(t) for t in dropped) + ".")
             notes.append(msg)
             warn.append(msg)
@@ -231,14 +269,25 @@ def fit_equation(terms: list[Term], data: pd.DataFrame, y: np.ndarray, *, task: 
     # on small confirmation sets (where separation happens), else only when the ordinary fit
     # looks like it ran off to infinity.
     separated = logit and len(X) * (len(classes) - 1) <= LP_MAX_ROWS and is_separated(X, codes, len(classes))
-    if logit and not separated:
+    k1 = (len(classes) - 1) if logit else 1
+    supported = supported_coefficients(len(X), anticipated_r2) if anticipated_r2 is not None else np.inf
+    overfit = logit and not separated and (X.shape[1] - 1) * k1 > supported
+    if logit and not separated and not overfit:
         result = _fit(response + " ~ " + form.split(" ~ ", 1)[1], frame, family, robust)
         separated = _runaway(result, X) and is_separated(X, codes, len(classes))
-    if separated:
+    if separated or overfit:
         fit = firth_fit(X, codes, len(classes))
         method = "Firth penalised likelihood"
         coef, bse, pvalues, ci = fit.params, fit.bse, fit.pvalues, fit.ci
         summary = ""
+    if overfit:
+        notes.append(f"The terms need {(X.shape[1] - 1) * k1} coefficients, more than the {len(X)} {fit_on} rows support "
+                     f"at an expected shrinkage of 0.9 (about {supported:.1f}; Riley et al. 2020, with the forest's "
+                     "out-of-bag R² as the anticipated value): fitted by Firth's penalised likelihood (Firth 1993), "
+                     "which shrinks the estimates towards zero instead of dropping terms.")
+        if robust:
+            notes.append("--robust does not apply to the penalised fit; model-based standard errors are shown.")
+    elif separated:
         msg = (f"The classes of {target!r} are separated on the {fit_on} rows (some combination of the terms "
                "predicts them perfectly), so ordinary estimates would be infinite: fitted by Firth's penalised "
                "likelihood (Firth 1993) with Wald intervals; read large coefficients as 'very strong', not as sizes.")
@@ -246,7 +295,7 @@ def fit_equation(terms: list[Term], data: pd.DataFrame, y: np.ndarray, *, task: 
         warn.append(msg)
         if robust:
             notes.append("--robust does not apply to the penalised fit; model-based standard errors are shown.")
-    else:
+    if not (separated or overfit):
         if result is None:
             result = _fit(response + " ~ " + form.split(" ~ ", 1)[1], frame, family, robust)
         order = _match_columns(np.asarray(result.model.exog), list(result.model.exog_names), frame, cols)
@@ -268,12 +317,21 @@ def fit_equation(terms: list[Term], data: pd.DataFrame, y: np.ndarray, *, task: 
     eq = EquationFit(task, family, LINKS[family], target, terms, cols, classes, np.asarray(coef, float), table,
                      form, fit_on, len(frame), notes=notes, warnings=warn, method=method,
                      dropped_terms=dropped, summary_text=summary)
+    if family == "poisson" and result is not None:
+        dispersion = float(result.pearson_chi2 / max(1.0, result.df_resid))
+        eq.tuning["pearson_dispersion"] = dispersion
+        if dispersion > OVERDISPERSION:
+            msg = (f"The counts vary {dispersion:.1f} times as much as a Poisson model allows (Pearson chi-square / df "
+                   f"on the {fit_on} rows), so its standard errors are too small: consider --family negative_binomial "
+                   "(Cameron & Trivedi 2013) or --robust.")
+            notes.append(msg)
+            warn.append(msg)
     if baseline is not None:
         base_keys = {_key(t) for t in baseline}
         base_cols = [j + 1 for j, c in enumerate(cols) if _key(terms[c.term]) in base_keys]
         if len(base_cols) < len(cols):
             eq.block_test = block_test(X, X[:, [0] + base_cols], frame[response].to_numpy(), family,
-                                       penalised=separated, n_classes=len(classes) if classes else None)
+                                       penalised=separated or overfit, n_classes=len(classes) if classes else None)
     if baseline is not None and eq.block_test is None:
         notes.append("No terms beyond the main effects were suggested (or kept), so there is no block test.")
     if fit_on == "confirmation":
@@ -314,8 +372,14 @@ def _fit(form: str, frame: pd.DataFrame, family: str, robust: bool):
         try:
             if family == "multinomial":
                 return smf.mnlogit(form, frame).fit(disp=0, maxiter=200, **({"cov_type": "HC0"} if robust else {}))
-            fam = {"gaussian": sm.families.Gaussian(), "binomial": sm.families.Binomial(),
-                   "poisson": sm.families.Poisson()}[family]
+            if family == "negative_binomial":
+                # NB2 (Cameron & Trivedi 2013, ch. 3): its dispersion by maximum likelihood, then the
+                # GLM at that dispersion so the table reads like the other families'.
+                alpha = float(smf.negativebinomial(form, frame).fit(disp=0, maxiter=200).params["alpha"])
+                fam = sm.families.NegativeBinomial(alpha=max(alpha, 1e-8))
+            else:
+                fam = {"gaussian": sm.families.Gaussian(), "binomial": sm.families.Binomial(),
+                       "poisson": sm.families.Poisson()}[family]
             return smf.glm(form, frame, family=fam).fit(use_t=(family == "gaussian"),
                                                         **({"cov_type": "HC3"} if robust else {}))
         except np.linalg.LinAlgError as exc:
@@ -358,6 +422,8 @@ def _loglik(X: np.ndarray, y: np.ndarray, family: str, penalised: bool, n_classe
                 res = sm.MNLogit(codes, X).fit(disp=0, maxiter=200)
                 return float(res.llf), X.shape[1] * (k - 1)
             return float(sm.GLM(codes, X, family=sm.families.Binomial()).fit().llf), X.shape[1]
+        if family == "negative_binomial":   # the dispersion is estimated in both models alike
+            return float(sm.NegativeBinomial(y, X).fit(disp=0, maxiter=200).llf), X.shape[1]
         return float(sm.GLM(y, X, family=sm.families.Poisson()).fit().llf), X.shape[1]
 
 
@@ -392,3 +458,100 @@ def block_test(X_full: np.ndarray, X_reduced: np.ndarray, y: np.ndarray, family:
     name = "penalised likelihood ratio" if penalised else "likelihood ratio"
     return {"test": name, "statistic": float(stat), "df": df,
             "p_value": float(stats.chi2.sf(max(stat, 0.0), df))}
+
+
+# ---------------------------------------------------------------- coefficients for scoring
+
+#: Ridge penalties tried by generalised cross-validation, relative to the standardised design.
+RIDGE_ALPHAS = tuple(float(a) for a in np.logspace(-3, 4, 36))
+
+
+def refit_for_scoring(inference: EquationFit, data: pd.DataFrame, y: np.ndarray, *, fills: dict, kinds: dict,
+                      fit_on: str, anticipated_r2: float | None) -> EquationFit:
+    """The same terms and design columns as ``inference``, re-estimated on ``data`` for prediction.
+
+    Maximum likelihood where the rows support the coefficients (:mod:`pocketforest.sizing`);
+    otherwise ridge (Gaussian, penalty by generalised cross-validation, Golub, Heath & Wahba 1979)
+    or Firth (logistic, multinomial). Poisson and negative binomial refits are maximum likelihood.
+    The result's ``inference`` is the confirmation fit, whose table is the one to report.
+    """
+    eq = inference
+    frame = _impute(data[[k for k in kinds]], fills, kinds)
+    X = eq.design(frame)
+    family = eq.family
+    logit = family in ("binomial", "multinomial")
+    k1 = len(eq.classes) - 1 if logit else 1
+    need = (X.shape[1] - 1) * k1
+    supported = supported_coefficients(len(X), anticipated_r2) if anticipated_r2 is not None else np.inf
+    tuning: dict = {"rows": int(len(X)), "coefficients": int(need), "supported_at_shrinkage_0.9": float(supported)}
+    notes = []
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        if family == "gaussian":
+            yv = np.asarray(y, dtype=float)
+            if need > supported and X.shape[1] > 1:
+                coef, tuning_r = _ridge(X, yv)
+                tuning.update(tuning_r)
+                method = "ridge (penalty by generalised cross-validation)"
+            else:
+                coef = np.linalg.lstsq(X, yv, rcond=None)[0]
+                method = "least squares"
+        elif logit:
+            codes = _response(y, eq.task, eq.classes).astype(int)
+            separated = len(X) * k1 <= LP_MAX_ROWS and is_separated(X, codes, len(eq.classes))
+            if separated or need > supported:
+                coef = firth_fit(X, codes, len(eq.classes)).params
+                method = "Firth penalised likelihood"
+                tuning["reason"] = "separated classes" if separated else "more coefficients than the rows support"
+            else:
+                res = (sm.MNLogit(codes, X).fit(disp=0, maxiter=200) if family == "multinomial"
+                       else sm.GLM(codes, X, family=sm.families.Binomial()).fit())
+                coef = np.asarray(res.params)
+                method = "maximum likelihood"
+                if _runaway(res, X):
+                    coef = firth_fit(X, codes, len(eq.classes)).params
+                    method = "Firth penalised likelihood"
+                    tuning["reason"] = "the ordinary fit ran off to infinity"
+        else:
+            yv = np.asarray(y, dtype=float)
+            if family == "negative_binomial":
+                alpha = float(sm.NegativeBinomial(yv, X).fit(disp=0, maxiter=200).params[-1])
+                fam = sm.families.NegativeBinomial(alpha=max(alpha, 1e-8))
+                tuning["alpha"] = alpha
+            else:
+                fam = sm.families.Poisson()
+            coef = np.asarray(sm.GLM(yv, X, family=fam).fit().params)
+            method = "maximum likelihood"
+    coef = np.asarray(coef, dtype=float).reshape(eq.coef.shape)
+    if not np.all(np.isfinite(coef)):
+        # never export a broken refit: keep the confirmation estimates and say so
+        notes.append(f"The refit on the {fit_on} rows did not give finite estimates; the confirmation-row "
+                     "coefficients are exported instead.")
+        return dataclasses.replace(eq, inference=None, notes=eq.notes + notes)
+    labels = ["Intercept"] + [c.label for c in eq.columns]
+    if coef.ndim == 2:
+        table = [{"term": labels[j], "estimate": float(coef[j, k]), "class": eq.classes[k + 1]}
+                 for k in range(coef.shape[1]) for j in range(len(labels))]
+    else:
+        table = [{"term": labels[j], "estimate": float(coef[j])} for j in range(len(labels))]
+    tuning["method"] = method
+    return dataclasses.replace(eq, coef=coef, table=table, fit_on=fit_on, n=int(len(X)), method=method,
+                               inference=inference, tuning=tuning, summary_text="",
+                               notes=list(eq.notes) + notes)
+
+
+def _ridge(X: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, dict]:
+    """Ridge on standardised columns (intercept unpenalised), back on the columns' own scale."""
+    from sklearn.linear_model import RidgeCV
+    Z = X[:, 1:]
+    mean, sd = Z.mean(axis=0), Z.std(axis=0)
+    sd = np.where(sd > 0, sd, 1.0)
+    model = RidgeCV(alphas=RIDGE_ALPHAS, fit_intercept=True).fit((Z - mean) / sd, y)
+    slopes = model.coef_ / sd
+    intercept = float(model.intercept_ - np.sum(slopes * mean))
+    Zs = (Z - mean) / sd
+    d = np.linalg.svd(Zs - Zs.mean(axis=0), compute_uv=False)
+    dof = float(np.sum(d ** 2 / (d ** 2 + model.alpha_)))
+    return np.r_[intercept, slopes], {"penalty": float(model.alpha_), "effective_df": dof,
+                                      "penalty_rule": "generalised cross-validation over "
+                                                      f"{len(RIDGE_ALPHAS)} penalties, standardised columns"}

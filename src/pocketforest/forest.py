@@ -39,27 +39,39 @@ class ForestFit:
         return [str(c) for c in self.model.classes_] if self.task == "classification" else None
 
     def predict_design(self, Xt: np.ndarray, n_jobs: int = -1) -> np.ndarray:
-        """Forest output (values, or class probabilities) on an encoded design.
+        """Forest output (values, or class probabilities) on an encoded design."""
+        return tree_average(self.model.estimators_, Xt, self.task, n_jobs)
 
-        Trees predict in parallel threads, but their outputs are added in tree order, from zero,
-        then divided by the tree count: exactly what scikit-learn's single-threaded
-        ``predict``/``predict_proba`` computes, bit for bit (its parallel version adds in
-        whatever order threads finish, which changes the last digits from run to run).
-        """
-        X = np.ascontiguousarray(Xt, dtype=np.float32)
-        regression = self.task == "regression"
-        trees = self.model.estimators_
 
-        def one(est):
-            return est.predict(X, check_input=False) if regression else est.predict_proba(X, check_input=False)
+#: Trees predicted per round of threads; their outputs are then added in tree order.
+TREE_BLOCK = 32
+#: Below this many rows, threads cost more than they save (1,000 rows x 100 trees: 8.1 ms on one
+#: thread, 6.2 ms on two), so small batches are predicted on one thread; the sum is the same.
+SMALL_BATCH = 500
 
-        out = np.zeros(len(X) if regression else (len(X), len(self.model.classes_)), dtype=np.float64)
-        block = 32
-        for start in range(0, len(trees), block):
-            for part in thread_map(one, trees[start:start + block], n_jobs):
-                out += part
-        out /= len(trees)
-        return out
+
+def tree_average(trees: list, Xt: np.ndarray, task: str, n_jobs: int = -1) -> np.ndarray:
+    """Mean of the trees' outputs, added in tree order from zero and divided by the tree count.
+
+    That is exactly what scikit-learn's single-threaded ``predict``/``predict_proba`` computes,
+    bit for bit; its parallel version adds in whatever order threads finish, which changes the
+    last digits from run to run. Trees still predict in parallel threads (they release the GIL).
+    The one copy of the forest average: the pipeline, discovery and the tree stage all use it.
+    """
+    X = np.ascontiguousarray(Xt, dtype=np.float32)
+    regression = task == "regression"
+
+    def one(est):
+        return est.predict(X, check_input=False) if regression else est.predict_proba(X, check_input=False)
+
+    jobs = 1 if len(X) < SMALL_BATCH else n_jobs
+    out = None
+    for start in range(0, len(trees), TREE_BLOCK):
+        for part in thread_map(one, trees[start:start + TREE_BLOCK], jobs):
+            out = part.astype(np.float64) if out is None else out + part
+    if out is None:
+        raise ValueError("a forest with no trees")
+    return out / len(trees)
 
 
 def fit_forest(X: pd.DataFrame, y: np.ndarray, preprocessor, columns: list[DesignColumn], task: str, *,

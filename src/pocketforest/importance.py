@@ -1,6 +1,6 @@
 """Out-of-bag permutation importance per raw column (Breiman 2001).
 
-For each tree, the error on its out-of-bag rows is measured before and after permuting one raw
+For each tree, the error (mean squared error; for classes the Brier score) on its out-of-bag rows is measured before and after permuting one raw
 column among those rows; a categorical column's indicator columns move together, so the column is
 judged as the user sees it. Importance is the mean increase over trees, its standard error the
 standard deviation over trees divided by the square root of the number of trees.
@@ -40,12 +40,14 @@ def oob_rows(forest, n_rows: int) -> list[np.ndarray]:
         return [_generate_unsampled_indices(est.random_state, n_rows, n_boot) for est in forest.estimators_]
 
 
-def oob_permutation_importance(fit: ForestFit, Xt: np.ndarray, y: np.ndarray, features: list[str],
-                               seed: int, n_jobs: int = -1) -> list[Importance]:
-    """Importance of each raw feature; ``Xt`` is the discovery design after preprocessing.
+def per_tree_increases(fit: ForestFit, Xt: np.ndarray, y: np.ndarray, features: list[str],
+                       seed: int, n_jobs: int = -1) -> np.ndarray:
+    """Out-of-bag error increase per tree and raw feature, a [trees, features] array.
 
-    Trees are scored in parallel threads (tree prediction releases the GIL); each tree's
-    permutation is drawn up front in tree order, so the numbers do not depend on the threads.
+    ``Xt`` is the discovery design after preprocessing. Trees are scored in parallel threads
+    (tree prediction releases the GIL); each tree's permutation is drawn up front in tree order,
+    so the numbers do not depend on the threads. Importance (:func:`summarise`) and materiality
+    (:mod:`pocketforest.discovery.materiality`) both read this one array.
     """
     forest = fit.model
     rng = np.random.default_rng(seed)
@@ -58,11 +60,22 @@ def oob_permutation_importance(fit: ForestFit, Xt: np.ndarray, y: np.ndarray, fe
         jobs.append((est, rows, perm))
     rows_out = thread_map(_tree_increases, [(est, Xt, target, rows, perm, groups, fit.task)
                                             for est, rows, perm in jobs], n_jobs)
-    increases = np.array(rows_out).reshape(len(jobs), len(features))
+    return np.array(rows_out, dtype=np.float64).reshape(len(jobs), len(features))
+
+
+def summarise(increases: np.ndarray, features: list[str]) -> list[Importance]:
+    """Mean increase over trees and its standard error (sd over trees / sqrt(trees)), sorted."""
+    t = len(increases)
     mean = increases.mean(axis=0)
-    se = increases.std(axis=0, ddof=1) / np.sqrt(len(increases))
+    se = increases.std(axis=0, ddof=1) / np.sqrt(t) if t > 1 else np.full(len(features), np.inf)
     out = [Importance(f, float(m), float(s)) for f, m, s in zip(features, mean, se)]
     return sorted(out, key=lambda r: -r.mean)
+
+
+def oob_permutation_importance(fit: ForestFit, Xt: np.ndarray, y: np.ndarray, features: list[str],
+                               seed: int, n_jobs: int = -1) -> list[Importance]:
+    """Importance of each raw feature (Breiman 2001), strongest first."""
+    return summarise(per_tree_increases(fit, Xt, y, features, seed, n_jobs), features)
 
 
 def _tree_increases(est, Xt: np.ndarray, target: np.ndarray, rows: np.ndarray, perm: np.ndarray | None,
@@ -89,7 +102,15 @@ def _tree_increases(est, Xt: np.ndarray, target: np.ndarray, rows: np.ndarray, p
 
 
 def _tree_error(est, X: np.ndarray, y: np.ndarray, task: str) -> float:
-    """Mean squared error (regression) or share misclassified (classification) of one tree."""
+    """Mean squared error of one tree: of its values (regression), or of its class probabilities
+    against the one-hot outcome (classification, the Brier score summed over classes).
+
+    The Brier score rather than the share misclassified: a permutation that moves probabilities
+    without flipping the top class still counts, so small effects show with far fewer rows
+    (a proper scoring rule; Brier 1950, Monthly Weather Review 78:1-3).
+    """
     if task == "regression":
         return float(np.mean((est.predict(X, check_input=False) - y) ** 2))
-    return float(np.mean(np.argmax(est.predict_proba(X, check_input=False), axis=1) != y))
+    proba = est.predict_proba(X, check_input=False)
+    proba[np.arange(len(y)), y] -= 1.0
+    return float(np.mean(np.sum(proba * proba, axis=1)))

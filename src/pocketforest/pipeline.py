@@ -16,11 +16,12 @@ import pandas as pd
 from . import __version__
 from .defaults import TREES
 from .design import fill_values, make_preprocessor, model_frame
-from .discovery import Discovery, discover
-from .equation import EquationFit, check_family, fit_equation
+from .discovery import Discovery, Requests, discover
+from .equation import EquationFit, check_family, coefficient_budget, fit_equation, refit_for_scoring
 from .evaluate import loss_with_interval, metrics
 from .forest import ForestFit, fit_forest
-from .importance import Importance, oob_permutation_importance
+from .importance import Importance, per_tree_increases, summarise
+from .sizing import anticipated_r2
 from .intake import Table
 from .split import Splits, make_splits
 from .surrogate import TreeFit, distill_tree, fidelity
@@ -41,7 +42,8 @@ class Settings:
     bootstrap: int = 1000
     quiet: bool = False
     synthetic_rows: int = 0          # extra forest-labelled rows for the surrogate tree (Breiman & Shang 1996)
-    cap_terms: bool = True           # about ten confirmation rows per coefficient (Peduzzi et al. 1996)
+    cap_terms: bool = True           # drop terms the confirmation rows cannot estimate at all
+    refit: bool = True               # export coefficients re-estimated on discovery + confirmation rows
     max_terms: int | None = None
     keep_vars: tuple[str, ...] = ()
     drop_vars: tuple[str, ...] = ()
@@ -122,20 +124,33 @@ def distill(table: Table, settings: Settings | None = None) -> Distillation:
 
     _say(s, "ranking variables (out-of-bag permutation importance)")
     Xt_d = prep.transform(Xd)
-    importance = oob_permutation_importance(forest, Xt_d, y_d, [f.name for f in table.features], s.seed)
+    names = [f.name for f in table.features]
+    per_tree = per_tree_increases(forest, Xt_d, y_d, names, s.seed)
+    importance = summarise(per_tree, names)
     clock.lap("importance")
 
+    family = check_family(s.family, task, forest.classes, y_all, target)
+    r2_hint = anticipated_r2(task, y_d, forest.oob_prediction, forest.classes)
+    budget, _ = coefficient_budget(_codes(y_c, task, forest.classes), family, len(forest.classes or [0, 1]))
     _say(s, "looking for bends and interactions")
-    discovery = discover(forest, table, disc, y_d, importance, fills, seed=s.seed, quiet=s.quiet,
-                         max_terms=s.max_terms, keep=s.keep_vars, drop=s.drop_vars,
-                         min_samples_leaf=s.min_samples_leaf)
+    requests = Requests(seed=s.seed, quiet=s.quiet, max_terms=s.max_terms, keep=tuple(s.keep_vars),
+                        drop=tuple(s.drop_vars), min_samples_leaf=s.min_samples_leaf,
+                        budget=budget if s.cap_terms else None, estimation_rows=len(conf))
+    discovery = discover(forest, table.features, task, disc, y_d, importance, per_tree, fills, requests)
     clock.lap("discovery")
 
     _say(s, "fitting the equation on the confirmation rows")
     baseline = main_effects([f for f in table.features if f.name in discovery.main_variables])
     equation = fit_equation(discovery.terms, conf, y_c, task=task, target=target, fills=fills, kinds=kinds,
-                            classes=forest.classes, family=s.family, robust=s.robust, baseline=baseline,
-                            cap=s.cap_terms)
+                            classes=forest.classes, family=family, robust=s.robust, baseline=baseline,
+                            cap=s.cap_terms, anticipated_r2=r2_hint)
+    if s.family is None and family in ("poisson",) and task == "regression":
+        equation.notes.append(f"{target!r} holds whole numbers from zero up with many zeros, so the equation is a "
+                              "Poisson GLM with a log link by default (pass --family gaussian to override).")
+    if s.refit:
+        both = pd.concat([disc, conf], ignore_index=True)
+        equation = refit_for_scoring(equation, both, np.concatenate([y_d, y_c]), fills=fills, kinds=kinds,
+                                     fit_on="discovery+confirmation", anticipated_r2=r2_hint)
     clock.lap("equation")
 
     _say(s, "distilling the surrogate tree")
@@ -150,6 +165,12 @@ def distill(table: Table, settings: Settings | None = None) -> Distillation:
     clock.lap("judge")
     result.timings = clock.laps
     return result
+
+
+def _codes(y: np.ndarray, task: str, classes: list[str] | None) -> np.ndarray:
+    if task == "regression":
+        return np.zeros(len(y), dtype=int)
+    return np.searchsorted(np.asarray(classes, dtype=object), np.asarray(y, dtype=object))
 
 
 class _Clock:

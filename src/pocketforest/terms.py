@@ -52,11 +52,17 @@ def resolve_levels(terms: list[Term], data: pd.DataFrame, kinds: dict[str, str])
         cats = [v for v in t.variables if kinds[v] == "categorical"]
         if cats:
             refs, levels = {}, {}
+            subset = params.get("subset", {})
             for v in cats:
                 counts = data[v].fillna("").astype(str).value_counts()
                 order = sorted(counts.index, key=lambda lv: (-counts[lv], lv))
                 refs[v] = order[0]
-                levels[v] = sorted(lv for lv in counts.index if lv != order[0])
+                if v in subset:
+                    # A product kept for chosen levels only: those levels, whichever is the reference
+                    # here (the main effects carry the rest); levels absent from these rows drop out.
+                    levels[v] = sorted(lv for lv in subset[v] if lv in counts.index)
+                else:
+                    levels[v] = sorted(lv for lv in counts.index if lv != order[0])
             params["reference"] = refs
             params["levels"] = levels
         out.append(Term(t.kind, list(t.variables), params, dict(t.evidence)))
@@ -91,9 +97,11 @@ def term_columns(index: int, term: Term, fills: dict[str, float | str], kinds: d
             return [Column(index, f"max(0, {_offset(v[0], k)[1:-1]})", Pos(Sub(_num(v[0], fills), Const(k))))]
         return [Column(index, f"max(0, {k:.4g} - {v[0]})", Pos(Sub(Const(k), _num(v[0], fills))))]
     if term.kind == "log":
-        shift = float(p.get("shift", 0.0))
-        node = Log(Sub(_num(v[0], fills), Const(-shift))) if shift else Log(_num(v[0], fills))
-        return [Column(index, f"log{_offset(v[0], -shift)}" if shift else f"log({v[0]})", node)]
+        # Guarded log: log(max(x, floor)) = log(max(0, x - floor) + floor), defined for every value
+        # that can arrive (zero and negatives too) and printed by every export from the same nodes.
+        floor = float(p["floor"])
+        node = Log(Sub(Pos(Sub(_num(v[0], fills), Const(floor))), Const(-floor)))
+        return [Column(index, f"log(max({v[0]}, {floor:.4g}))", node)]
     if term.kind == "categorical":
         return [Column(index, f"[{v[0]} = {level_label(lv)}]", Is(v[0], lv)) for lv in p["levels"][v[0]]]
     if term.kind == "interaction":

@@ -1,9 +1,10 @@
 """Small data end to end: what researchers with 150-400 rows get from `distill`.
 
 Data sets shipped with scikit-learn: Wisconsin breast cancer (Street, Wolberg & Mangasarian 1993;
-569 rows, 2 classes) and wine recognition (Forina et al.; 178 rows, 3 classes). The size cap
-follows Peduzzi et al. (1996, J Clin Epidemiol 49:1373-1379): about ten events of the rarer
-class per coefficient, a rule of thumb. A constructed, perfectly separated data set checks the
+569 rows, 2 classes) and wine recognition (Forina et al.; 178 rows, 3 classes). Where the
+confirmation rows support fewer coefficients than suggested (Riley et al. 2020, BMJ 368:m441),
+the logistic fit is penalised (Firth 1993); terms are dropped only below three rows of the rarer
+class per coefficient, where even that cannot estimate them. A constructed, perfectly separated data set checks the
 Firth fallback (Firth 1993). Every bundle must pass `verify` (ONNX parity with the fitting
 libraries).
 """
@@ -29,12 +30,12 @@ pytestmark = pytest.mark.external
 SCHEMA = json.loads((ROOT / "src/pocketforest/schema/manifest.schema.json").read_text())
 
 
-def _ranked_discovery(forest, table, disc, y, importance, fills, **_):
+def _ranked_discovery(forest, features, task, disc, y, importance, per_tree, fills, requests=None):
     """Stands in for the discovery step: main effects strongest first (by OOB permutation
     importance) and the product of the two strongest numeric columns, so the equation has a
     suggested term beyond the main effects to test."""
     order = [i.feature for i in importance]
-    feats = sorted(table.features, key=lambda f: order.index(f.name))
+    feats = sorted(features, key=lambda f: order.index(f.name))
     mains = main_effects(feats)
     nums = [f.name for f in feats if f.kind == "numeric"][:2]
     centres = {v: float(pd.to_numeric(disc[v]).mean()) for v in nums}
@@ -82,8 +83,12 @@ def test_breast_cancer_two_classes(tmp_path, monkeypatch):
     _common(m, 2)
     eq = m["equation"]
     assert eq["family"] == "binomial" and m["tree"]["depth"] <= 3
-    # 142 confirmation rows, 53 of the rarer class: about 5 coefficients; 30 main effects + 1 suggested
-    assert len(eq["coefficients"]) <= 1 + 5 and "Peduzzi" in eq["note"]
+    # 142 confirmation rows, 53 of the rarer class: at most 53 // 3 = 17 coefficients can be
+    # estimated; 30 main effects + 1 suggested, so the weakest are dropped and the rest penalised
+    assert len(eq["coefficients"]) <= 1 + 17 and "can estimate at most about 17" in eq["note"]
+    # penalised either because the rows cannot carry the terms or because they separate the classes
+    assert eq["method"] == "Firth penalised likelihood"
+    assert "Riley et al. 2020" in eq["note"] or "separated" in eq["note"]
     assert any(t["kind"] == "interaction" for t in m["terms"])          # the strong suggestion survives
     assert eq["block_test"]["df"] == 1 and 0 <= eq["block_test"]["p_value"] <= 1
 
@@ -94,7 +99,7 @@ def test_wine_three_classes(tmp_path, monkeypatch):
     eq = m["equation"]
     assert eq["family"] == "multinomial" and {c["class"] for c in eq["coefficients"]} == set(m["classes"][1:])
     assert r.equation.coef.ndim == 2 and r.equation.coef.shape[1] == 2
-    assert "Peduzzi" in eq["note"]   # 44 confirmation rows cannot carry 13 main effects
+    assert "can estimate at most" in eq["note"]   # 44 confirmation rows cannot carry 13 main effects x 2
 
 
 def test_perfectly_separated_data_warns_and_stays_finite(tmp_path):

@@ -7,52 +7,23 @@ for a number, its indicator columns for a category, which always move together.
 """
 from __future__ import annotations
 
-from concurrent.futures import ThreadPoolExecutor
 from typing import Callable
 
 import numpy as np
+
+from ..forest import tree_average
 
 Predict = Callable[[np.ndarray], np.ndarray]
 
 # Rows x columns of one predict batch; keeps memory flat whatever the design width.
 BATCH_CELLS = 4_000_000
-SMALL_BATCH = 500  # below this many rows threads cost more than they save (measured: 1,000 rows × 100 trees 8.1 ms alone, 6.2 ms on two threads)
 
 
-def forest_predictor(model, task: str, n_jobs: int = 2) -> Predict:
-    """Mean of the trees' outputs (values, or class probabilities for classification).
-
-    Trees are split into ``n_jobs`` fixed blocks predicted in threads (scikit-learn trees release
-    the GIL) and the block sums are added in a fixed order, so results are the same on every run.
-    """
+def forest_predictor(model, task: str) -> Predict:
+    """``predict(X)`` = the mean of the forest's trees (values, or class probabilities), through
+    the one deterministic forest average (:func:`pocketforest.forest.tree_average`)."""
     trees = list(model.estimators_)
-    blocks = [trees[i::n_jobs] for i in range(max(1, n_jobs))]
-    blocks = [b for b in blocks if b]
-
-    def one_block(block, X):
-        total = None
-        for est in block:
-            out = est.predict(X, check_input=False) if task == "regression" else est.predict_proba(X, check_input=False)
-            total = out.astype(np.float64) if total is None else total + out
-        return total
-
-    def predict(X: np.ndarray) -> np.ndarray:
-        X = np.ascontiguousarray(X, dtype=np.float32)
-        if len(blocks) == 1 or len(X) < SMALL_BATCH:
-            # Same blocks, same order: identical sums whether threaded or not.
-            parts = [one_block(b, X) for b in blocks]
-            total = parts[0]
-            for p in parts[1:]:
-                total = total + p
-            return total / len(trees)
-        with ThreadPoolExecutor(len(blocks)) as pool:
-            parts = list(pool.map(lambda b: one_block(b, X), blocks))
-        total = parts[0]
-        for p in parts[1:]:
-            total = total + p
-        return total / len(trees)
-
-    return predict
+    return lambda X: tree_average(trees, X, task)
 
 
 def _batched_means(predict: Predict, background: np.ndarray, cols: list[int], values: np.ndarray) -> np.ndarray:

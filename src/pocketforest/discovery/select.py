@@ -1,10 +1,19 @@
-"""From candidate terms to the suggested equation: forward selection on the discovery rows.
+"""From candidate terms to the suggested equation: selection on the discovery rows.
 
-The forest puts candidates forward (bends, products, bends in products); each earns its place
-only if it lowers the Bayesian information criterion (Schwarz 1978) of a GLM fitted on the
-discovery rows — the rows that choose, never the rows that later estimate and test. Hierarchy is
-kept: every numeric variable of a product enters as a main effect, and a squared product only
-after its plain product.
+The selection starts where a statistician's hand-built model starts — a main effect for every
+material variable — and then lets the forest add to it: bends, products of numbers, a number's
+slope that differs by category level (per level where it lives in some levels only), and
+category × category cells. A candidate enters only if it lowers the extended Bayesian information
+criterion of the GLM on the discovery rows: BIC (Schwarz 1978) plus 2·log(candidates of its kind)
+per entered term (extended BIC with γ = 1, Chen & Chen 2008, Biometrika 95:759-771), so trying many
+pairs does not let chance products in. A backward pass then removes what later entries made
+redundant, main effects included, unless a bend or product needs them (hierarchy) or the user
+asked for them.
+
+Form complexity is sized to the rows that will estimate the equation: bends and products stop
+entering once the design would exceed the coefficient budget those rows support, two hinges on
+one variable are offered only with enough rows, and at most one variable of a strongly correlated
+cluster may bend.
 """
 from __future__ import annotations
 
@@ -17,14 +26,22 @@ from sklearn.metrics import log_loss
 
 from ..expr import evaluate
 from ..terms import Term, design_columns, resolve_levels
+from .context import Context
+
+SELECT_ROWS = {"regression": 20000, "classification": 4000}
+#: Two hinges cost one more coefficient than one bend and are easily fitted to noise: offered only
+#: when the estimation rows reach this many (common practice: tens of rows per coefficient).
+TWO_HINGE_ROWS = 400
+#: Per-cell category × category candidates only when the pair has at most this many cells.
+MAX_CELLS = 12
 
 
 @dataclass
 class Candidate:
     key: str
     terms: list[Term]
-    requires: list[str] = field(default_factory=list)   # keys that must already be in the model
-    excludes: str | None = None                          # alternatives share this key; one at most
+    pool: str                                            # "bend" or "pair": its extended-BIC family
+    conflicts: frozenset[str] = field(default_factory=frozenset)   # at most one chosen per key
 
 
 def _columns(terms: list[Term], data: pd.DataFrame, fills: dict, kinds: dict) -> np.ndarray:
@@ -65,59 +82,265 @@ class Criterion:
         ll = -log_loss(self.labels, proba, labels=np.arange(self.k), normalize=False)
         return -2.0 * ll + D.shape[1] * (self.k - 1) * np.log(n)
 
+    def extended(self, X: np.ndarray, blocks: list[np.ndarray]) -> list[float]:
+        """The criterion of ``X`` with each block of columns added, one block at a time.
 
-def forward_select(base: list[Term], candidates: list[Candidate], data: pd.DataFrame, y: np.ndarray, *,
-                   task: str, classes: list[str] | None, fills: dict, kinds: dict,
-                   max_terms: int | None = None) -> tuple[list[Term], list[dict], dict[str, float]]:
-    """Greedy forward selection; returns terms, the step log, and each chosen key's BIC gain."""
-    crit = Criterion(y, task, classes)
-    if max_terms is not None and len(base) > max_terms:
-        base = base[:max_terms]
+        Least squares: one QR of the current design, then each block's reduction of the residual
+        sum of squares from its part orthogonal to that design (the same numbers as refitting,
+        to rounding, at a fraction of the cost). Logit: one fit of the current model, then each
+        block's Rao score statistic (Rao 1948), the first-order drop in −2 log-likelihood that
+        adding it would bring — the usual device of forward selection in logistic regression.
+        """
+        if self.task != "regression":
+            return self._score_tests(X, blocks)
+        n = self.n
+        D = np.column_stack([np.ones(n), X]) if X.size else np.ones((n, 1))
+        Q, _ = np.linalg.qr(D)
+        resid = self.y - Q @ (Q.T @ self.y)
+        rss0 = float(resid @ resid)
+        out = []
+        for b in blocks:
+            R = b - Q @ (Q.T @ b)
+            u, sv, _ = np.linalg.svd(R, full_matrices=False)
+            keep = sv > 1e-10 * max(1.0, float(sv.max()) if sv.size else 1.0)
+            g = u[:, keep].T @ resid
+            rss = max(rss0 - float(g @ g), 1e-300)
+            out.append(n * np.log(rss / n) + (D.shape[1] + b.shape[1]) * np.log(n))
+        return out
+
+
+    def _score_tests(self, X: np.ndarray, blocks: list[np.ndarray]) -> list[float]:
+        n, k = self.n, self.k
+        D = np.column_stack([np.ones(n), X]) if X.size else np.ones((n, 1))
+        if X.size:
+            sd = X.std(axis=0)
+            Zs = (X - X.mean(axis=0)) / np.where(sd > 0, sd, 1.0)
+            proba = LogisticRegression(C=np.inf, max_iter=1000).fit(Zs, self.labels).predict_proba(Zs)
+        else:
+            proba = np.tile(np.bincount(self.labels, minlength=k) / n, (n, 1))
+        ll = -log_loss(self.labels, proba, labels=np.arange(k), normalize=False)
+        P = proba[:, 1:]                                  # classes 1..K-1 against class 0
+        R = np.eye(k)[self.labels][:, 1:] - P             # score residuals
+        W = -P[:, :, None] * P[:, None, :]
+        idx = np.arange(k - 1)
+        W[:, idx, idx] += P
+
+        def info(A, B):
+            m = np.einsum("ia,ib,ikl->kalb", A, B, W, optimize=True)
+            return m.reshape(A.shape[1] * (k - 1), B.shape[1] * (k - 1))
+
+        Idd = info(D, D)
+        Idd_inv = np.linalg.pinv(Idd)
+        out = []
+        for b in blocks:
+            U = (b.T @ R).T.reshape(-1)                   # class-major, as info() orders
+            Idz = info(D, b)
+            Izz = info(b, b) - Idz.T @ Idd_inv @ Idz
+            chi2 = float(U @ np.linalg.pinv(Izz) @ U)
+            out.append(-2.0 * ll - max(chi2, 0.0) + (D.shape[1] + b.shape[1]) * (k - 1) * np.log(n))
+        return out
+
+
+@dataclass
+class Selection:
+    terms: list[Term]
+    log: list[dict]
+    gains: dict[str, float]
+    rows: int
+    not_chosen: list[str]
+    removed_main_effects: list[str]
+
+    def to_dict(self) -> dict:
+        return {"rows": self.rows, "steps": self.log, "not_chosen": self.not_chosen,
+                "removed_main_effects": self.removed_main_effects,
+                "rule": ("forward selection from the material main effects: a bend or product enters when it lowers "
+                         "the extended BIC (BIC + 2 log(candidates of its kind), Chen & Chen 2008) of the GLM on the "
+                         "discovery rows, within the coefficient budget of the estimation rows; then a backward pass "
+                         "removes terms (main effects too, keeping hierarchy and requests) whose removal lowers it")}
+
+
+def select_terms(ctx: Context, material: list[str], requested: set[str], shapes: dict,
+                 pairs: list[dict]) -> Selection:
+    n = len(ctx.frame)
+    rows = np.sort(ctx.rng(29).permutation(n)[:min(n, SELECT_ROWS[ctx.task])])
+    data = ctx.frame.iloc[rows].reset_index(drop=True)
+    y = np.asarray(ctx.y)[rows]
+    kinds = ctx.kinds
+    # Requested variables first, then by importance; a term cap keeps the front of this list.
+    order = sorted(material, key=lambda v: (v not in requested, material.index(v)))
+    if ctx.requests.max_terms is not None:
+        order = order[:ctx.requests.max_terms]
+    base = [Term("linear" if kinds[v] == "numeric" else "categorical", [v], evidence={"reason": "main effect"})
+            for v in order]
+    candidates = _bend_candidates(ctx, order, shapes) + _pair_candidates(ctx, order, pairs)
+    return _forward_backward(ctx, base, candidates, data, y, requested, len(rows))
+
+
+def _bend_candidates(ctx: Context, order: list[str], shapes: dict) -> list[Candidate]:
+    """Every bend form a curve supports; the discovery rows pick at most one per variable, and at
+    most one variable per cluster of strongly correlated numbers."""
+    cluster_of = {v: f"bend-cluster:{i}" for i, c in enumerate(ctx.correlated_clusters(order)) for v in c}
+    rows = ctx.requests.estimation_rows
+    out = []
+    for v in order:
+        sh = shapes[v]
+        if sh["kind"] != "numeric" or not sh.get("bend_put_forward"):
+            continue
+        conflicts = frozenset({f"bend:{v}"} | ({cluster_of[v]} if v in cluster_of else set()))
+        for kind, info in sh["forms"].items():
+            if kind == "linear" or (kind == "two_hinges" and rows is not None and rows < TWO_HINGE_ROWS):
+                continue
+            ev = {"reason": "bend", "curve": sh["curve_used"], "share_missed_by_line": sh["share_missed_by_line"],
+                  "form": kind, "form_r2": info["r2"], "best_form_on_curve": sh["best_bend"]}
+            if kind == "quadratic":
+                ts = [Term("quadratic", [v], {"centre": round(sh["centre"], 6)}, ev)]
+            elif kind == "log":
+                ts = [Term("log", [v], {"floor": info["floor"]}, ev)]
+            else:
+                ts = [Term("hinge", [v], {"knot": float(f"{k:.6g}"), "direction": "above"}, dict(ev))
+                      for k in info["knots"]]
+            out.append(Candidate(f"bend ({kind}):{v}", ts, "bend", conflicts))
+    return out
+
+
+def _pair_candidates(ctx: Context, order: list[str], pairs: list[dict]) -> list[Candidate]:
+    """Products for every searched pair whose variables keep their main effects (hierarchy)."""
+    kinds, fills = ctx.kinds, ctx.fills
+    out = []
+    for rec in pairs:
+        a, b = rec["variables"]
+        if not {a, b} <= set(order):
+            continue
+        ev = {"reason": "interaction", "h2": rec["h2"], "strength": rec["strength"]}
+        group = frozenset({f"pair:{a}*{b}"})
+        if kinds[a] == kinds[b] == "numeric":
+            centres = {v: round(float(pd.to_numeric(ctx.frame[v], errors="coerce").fillna(fills[v]).mean()), 6)
+                       for v in (a, b)}
+            plain = Term("interaction", [a, b], {"centres": centres, "power": 1}, ev)
+            out.append(Candidate(f"product:{a}*{b}", [plain], "pair", group))
+            prod = rec.get("product")
+            if prod and prod["bends"]:
+                for name, r2 in prod["r2_product_squared"].items():
+                    c = centres if name == "mean" else {a: 0.0, b: 0.0}
+                    ev2 = {**ev, "reason": "bend in the interaction", "r2_product": prod["r2_product"],
+                           "r2_with_square": r2, "centring": name}
+                    # The squared product brings its plain product (hierarchy), so both enter together.
+                    out.append(Candidate(f"product with bend ({name}):{a}*{b}",
+                                         [Term("interaction", [a, b], {"centres": centres, "power": 1}, dict(ev)),
+                                          Term("interaction", [a, b], {"centres": c, "power": 2}, ev2)],
+                                         "pair", group))
+            continue
+        # A number times a category's indicators is left uncentred: with both main effects in the
+        # model centring changes nothing fitted, and the plain product keeps treatment coding.
+        out.append(Candidate(f"product:{a}*{b}", [Term("interaction", [a, b], {"centres": {}, "power": 1}, ev)],
+                             "pair", group))
+        cats = [v for v in (a, b) if kinds[v] == "categorical"]
+        levels = {v: _levels(ctx.frame, v) for v in cats}
+        if len(cats) == 1:
+            # The slope of the number in one level only (the others share the main-effect slope).
+            for lv in levels[cats[0]]:
+                out.append(Candidate(f"product:{a}*{b}[{lv}]",
+                                     [Term("interaction", [a, b], {"centres": {}, "power": 1,
+                                                                   "subset": {cats[0]: [lv]}}, dict(ev))],
+                                     "pair", group))
+        elif len(levels[a]) * len(levels[b]) <= MAX_CELLS:
+            for la in levels[a]:
+                for lb in levels[b]:
+                    out.append(Candidate(f"product:{a}*{b}[{la},{lb}]",
+                                         [Term("interaction", [a, b], {"centres": {}, "power": 1,
+                                                                       "subset": {a: [la], b: [lb]}}, dict(ev))],
+                                         "pair", group))
+    return out
+
+
+def _levels(frame: pd.DataFrame, var: str) -> list[str]:
+    """Non-reference levels (reference = most common, as the equation codes it)."""
+    counts = frame[var].fillna("").astype(str).value_counts()
+    order = sorted(counts.index, key=lambda lv: (-counts[lv], lv))
+    return sorted(order[1:])
+
+
+def _forward_backward(ctx: Context, base: list[Term], candidates: list[Candidate], data: pd.DataFrame,
+                      y: np.ndarray, requested: set[str], n_rows: int) -> Selection:
+    kinds, fills = ctx.kinds, ctx.fills
+    crit = Criterion(y, ctx.task, ctx.classes)
+    pools = {p: sum(c.pool == p for c in candidates) for p in ("bend", "pair")}
+    extra = {p: 2.0 * np.log(max(1, k)) for p, k in pools.items()}     # extended BIC, γ = 1
+    base_cols = [_columns([t], data, fills, kinds) for t in base]
     cols = {c.key: _columns(c.terms, data, fills, kinds) for c in candidates}
-    current = _columns(base, data, fills, kinds)
-    score = crit(current)
+    budget = ctx.requests.budget
+    max_terms = ctx.requests.max_terms
+
+    def design(mains: list[int], chosen: list[str]) -> np.ndarray:
+        blocks = [base_cols[i] for i in mains] + [cols[k] for k in chosen]
+        return np.column_stack(blocks) if blocks else np.empty((len(y), 0))
+
+    def penalised(mains: list[int], chosen: list[str]) -> float:
+        by = {c.key: c for c in candidates}
+        return crit(design(mains, chosen)) + sum(extra[by[k].pool] for k in chosen)
+
+    mains = list(range(len(base)))
     chosen: list[str] = []
-    log = [{"step": 0, "added": "main effects", "bic": float(score)}]
+    score = penalised(mains, chosen)
+    log = [{"step": 0, "added": "main effects", "criterion": float(score)}]
     gains: dict[str, float] = {}
-    n_terms = len(base)
     by_key = {c.key: c for c in candidates}
     while True:
+        width = design(mains, chosen).shape[1]
+        n_terms = len(mains) + sum(len(by_key[k].terms) for k in chosen)
+        taken = set().union(*(by_key[k].conflicts for k in chosen)) if chosen else set()
         best, best_score = None, score
-        for c in candidates:
-            if c.key in chosen or not all(r in chosen for r in c.requires):
-                continue
-            if c.excludes and any(by_key[k].excludes == c.excludes for k in chosen):
-                continue
-            if max_terms is not None and n_terms + len(c.terms) > max_terms:
-                continue
-            s = crit(np.column_stack([current, cols[c.key]]))
+        open_ = [c for c in candidates
+                 if c.key not in chosen and not (c.conflicts & taken)
+                 and (budget is None or width + cols[c.key].shape[1] <= budget)
+                 and (max_terms is None or n_terms + len(c.terms) <= max_terms)]
+        current = design(mains, chosen)
+        fixed = sum(extra[by_key[k].pool] for k in chosen)
+        for c, value in zip(open_, crit.extended(current, [cols[c.key] for c in open_])):
+            s = value + fixed + extra[c.pool]
             if s < best_score - 1e-9:
                 best, best_score = c, s
         if best is None:
             break
         gains[best.key] = float(score - best_score)
         chosen.append(best.key)
-        current = np.column_stack([current, cols[best.key]])
         score = best_score
-        n_terms += len(best.terms)
-        log.append({"step": len(chosen), "added": best.key, "bic": float(score), "bic_drop": gains[best.key]})
-    # Backward pass: a candidate chosen early may be made redundant by one chosen later.
+        log.append({"step": len(log), "added": best.key, "criterion": float(score), "drop": gains[best.key]})
+    # Backward: a candidate chosen early may be made redundant by a later one, and a main effect
+    # may add nothing once the forest's terms are in (a correlated proxy, say).
+    removed_mains: list[str] = []
     changed = True
-    while changed and len(chosen) > 1:
+    while changed:
         changed = False
-        for key in list(chosen):
-            rest = [k for k in chosen if k != key]
-            X = np.column_stack([_columns(base, data, fills, kinds)] + [cols[k] for k in rest])
-            s = crit(X)
+        needed = {v for k in chosen for t in by_key[k].terms for v in t.variables}
+        options = [("term", k) for k in chosen] + [("main", i) for i in mains
+                                                   if base[i].variables[0] not in needed | requested]
+        for what, item in options:
+            m2 = [i for i in mains if not (what == "main" and i == item)]
+            c2 = [k for k in chosen if not (what == "term" and k == item)]
+            if what == "term" and any(v not in {base[i].variables[0] for i in m2}
+                                      for k in c2 for t in by_key[k].terms for v in t.variables):
+                continue
+            s = penalised(m2, c2)
             if s < score - 1e-9:
-                log.append({"step": len(log), "removed": key, "bic": float(s), "bic_drop": float(score - s)})
-                chosen, score, changed = rest, s, True
-                gains.pop(key, None)
+                name = item if what == "term" else f"main effect:{base[item].variables[0]}"
+                log.append({"step": len(log), "removed": name, "criterion": float(s), "drop": float(score - s)})
+                if what == "main":
+                    removed_mains.append(base[item].variables[0])
+                gains.pop(item if what == "term" else "", None)
+                mains, chosen, score, changed = m2, c2, s, True
                 break
-    terms = list(base)
+    if not mains and not chosen and base:   # keep one slope: the strongest variable
+        mains = [0]
+        removed_mains = [v for v in removed_mains if v != base[0].variables[0]]
+    terms = [base[i] for i in mains]
     for key in chosen:
         terms += by_key[key].terms
-    return terms, log, gains
+    for key, gain in gains.items():
+        for t in by_key[key].terms:
+            t.evidence["criterion_drop_on_entry"] = gain
+    left = [c.key for c in candidates if c.key not in chosen]
+    return Selection(terms, log, gains, n_rows, left, removed_mains)
 
 
 def drop_one(terms: list[Term], data: pd.DataFrame, y: np.ndarray, *, task: str, classes: list[str] | None,

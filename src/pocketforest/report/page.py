@@ -218,7 +218,7 @@ def _term_text(t, var: str) -> str:
     if t.kind == "hinge":
         return f"hinge at {p.get('knot', 0):.4g} ({p.get('direction', 'above')})"
     if t.kind == "log":
-        return "logarithm" + (f" (shift {p['shift']:.4g})" if p.get("shift") else "")
+        return "logarithm" + (f", guarded below at {p['floor']:.4g}" if p.get("floor") is not None else "")
     if t.kind == "categorical":
         return "one step per level"
     if t.kind == "interaction":
