@@ -25,7 +25,7 @@ def test_poisson_equation_end_to_end_passes_verify(tmp_path):
     _counts().to_csv(data, index=False)
     out = tmp_path / "bundle"
     r = run_cli("distill", str(data), "--target", "events", "--family", "poisson", "--trees", "30", "-q",
-                "--out", str(out))
+                "--split", "0.5,0.25,0.25", "--out", str(out))
     assert r.returncode == 0, r.stderr
     m = json.loads((out / "manifest.json").read_text())
     assert m["equation"]["family"] == "poisson" and m["equation"]["link"] == "log"

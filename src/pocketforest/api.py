@@ -15,7 +15,7 @@ import pandas as pd
 
 def fit(data: pd.DataFrame | str | os.PathLike, target: str, *, task: str = "auto",
         categorical: Sequence[str] = (), ignore: Sequence[str] = (), random_state: int = 0,
-        n_trees: int = 500, tree_depth: int | None = None, split: tuple[float, float, float] = (0.5, 0.25, 0.25),
+        n_trees: int = 500, tree_depth: int | None = None, split: tuple[float, float, float] | None = None,
         quiet: bool = True):
     """Run the whole job on a DataFrame (or a data file) and return the :class:`Distillation`."""
     from .intake import load, prepare

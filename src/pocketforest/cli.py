@@ -39,7 +39,9 @@ def _distill_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--tree-depth", type=int, help="surrogate depth (default: smallest reaching the fidelity target)")
     p.add_argument("--fidelity-target", type=float, default=0.9, help="fidelity the default depth must reach")
     p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
-    p.add_argument("--split", default="0.5,0.25,0.25", help="discovery,confirmation,test shares")
+    p.add_argument("--split", default=None,
+                   help="discovery,confirmation,test shares, e.g. 0.5,0.25,0.25 (default: that split from "
+                        "500 rows; below, no test split and figures from cross-validation of the whole pipeline)")
     p.add_argument("--categorical", nargs="+", default=[], metavar="COL", help="treat these columns as categories")
     p.add_argument("--ignore", nargs="+", default=[], metavar="COL", help="leave these columns out")
     p.add_argument("--family", choices=["gaussian", "binomial", "multinomial", "poisson"],
@@ -131,7 +133,7 @@ def _run_distill(data: str, target: str, args: argparse.Namespace) -> int:
         raise InputError(f"--synthetic-rows {args.synthetic_rows} is negative: give 0 or more rows")
     if args.max_terms is not None and args.max_terms < 1:
         raise InputError("--max-terms must be at least 1")
-    fractions = parse_fractions(args.split)
+    fractions = parse_fractions(args.split) if args.split is not None else None
     out = args.out or _default_out(data)
     if Path(out).exists() and not args.force:
         raise InputError(f"{out} already exists: choose another --out or pass --force to replace it")

@@ -91,7 +91,8 @@ HIGHER_IS_BETTER = {"r2": True, "accuracy": True, "rmse": False, "mae": False, "
 
 def loss_with_interval(y: np.ndarray, forest_pred: np.ndarray, other_pred: np.ndarray, task: str,
                        classes: list[str] | None, *, resamples: int = 1000, seed: int = 0,
-                       level: float = 0.95, block: int = 100, reference_values: bool = True) -> dict:
+                       level: float = 0.95, block: int = 100, reference_values: bool = True,
+                       groups: np.ndarray | None = None) -> dict:
     """Forest metric minus surrogate metric, with a paired percentile bootstrap interval.
 
     The headline is R² (regression) or accuracy (classification); ``also`` holds the same for the
@@ -99,7 +100,9 @@ def loss_with_interval(y: np.ndarray, forest_pred: np.ndarray, other_pred: np.nd
     (surrogate minus forest for RMSE, MAE, log loss and Brier). AUC has no interval here: it is
     not a sum over rows. ``reference_values=False`` takes the point values from the same sums as
     the bootstrap (equal to scikit-learn's to rounding) and skips its input checks, for
-    simulations that call this thousands of times.
+    simulations that call this thousands of times. ``groups`` (a row's original position when
+    the rows are out-of-fold predictions stacked over cross-validation repeats) makes the
+    bootstrap draw original rows, each with all its repeats, so repeats do not pass for new rows.
     """
     n = len(y)
     parts = {"f" + k: v for k, v in _row_terms(y, forest_pred, task, classes).items()}
@@ -120,9 +123,12 @@ def loss_with_interval(y: np.ndarray, forest_pred: np.ndarray, other_pred: np.nd
     diffs: dict[str, list] = {m: [] for m in f0}
     for start in range(0, resamples, block):
         b = min(block, resamples - start)
-        idx = rng.integers(0, n, (b, n))
-        idx += (np.arange(b) * n)[:, None]
-        W = np.bincount(idx.ravel(), minlength=b * n).reshape(b, n).astype(float)
+        m = n if groups is None else int(groups.max()) + 1
+        idx = rng.integers(0, m, (b, m))
+        idx += (np.arange(b) * m)[:, None]
+        W = np.bincount(idx.ravel(), minlength=b * m).reshape(b, m).astype(float)
+        if groups is not None:
+            W = W[:, groups]
         fs, os_ = metrics_of(W)
         for m in f0:
             diffs[m].append(_signed(m, fs[m], os_[m]))

@@ -6,6 +6,7 @@ fidelity and loss figure comes from the test rows.
 """
 from __future__ import annotations
 
+import dataclasses
 import sys
 import time
 from dataclasses import dataclass, field
@@ -21,6 +22,7 @@ from .equation import EquationFit, check_family, coefficient_budget, fit_equatio
 from .evaluate import loss_with_interval, metrics
 from .forest import ForestFit, fit_forest
 from .importance import Importance, per_tree_increases, summarise
+from .resample import Plan, choose_plan, fold_assignments, out_of_fold
 from .sizing import anticipated_r2
 from .intake import Table
 from .split import Splits, make_splits
@@ -36,7 +38,9 @@ class Settings:
     tree_depth: int | None = None
     target_fidelity: float = 0.9
     seed: int = 0
-    split: tuple[float, float, float] = (0.5, 0.25, 0.25)
+    #: None: automatic (cross-validation below resample.SMALL_DATA_ROWS rows, else 0.5/0.25/0.25);
+    #: a tuple forces that discovery / confirmation / test split.
+    split: tuple[float, float, float] | None = None
     family: str | None = None
     robust: bool = False
     bootstrap: int = 1000
@@ -65,6 +69,9 @@ class Distillation:
     fidelity: dict
     loss: dict
     warnings: list[str] = field(default_factory=list)
+    plan: Plan | None = None
+    #: Cross-validation only: the fold of every row in every repeat ([repeats, rows]).
+    folds: np.ndarray | None = None
     #: Wall seconds per stage (split, forest, importance, discovery, equation, tree, judge); read by
     #: the benchmark so each stage's share of the run is measured, not guessed.
     timings: dict[str, float] = field(default_factory=dict)
@@ -98,13 +105,38 @@ def _say(settings: Settings, text: str) -> None:
 
 
 def distill(table: Table, settings: Settings | None = None) -> Distillation:
+    """The whole job: fit every model once, then judge them on the test rows, or by
+    cross-validating the whole pipeline when the table is small (:mod:`pocketforest.resample`)."""
     s = settings or Settings()
+    y_all = table.data[table.target].to_numpy()
+    check_family(s.family, table.task, table.classes, y_all, table.target)   # fail before any fitting
+    plan = choose_plan(len(table.data), s.split)
+    _say(s, f"plan: {plan.reason}")
+    result = _fit_models(table, s, plan.split)
+    result.plan = plan
+    clock = _Clock()
+    if plan.kind == "cross-validation":
+        _say(s, f"judging by {plan.repeats} x {plan.folds}-fold cross-validation of the whole pipeline")
+        _judge_by_cross_validation(result, plan)
+    else:
+        test = table.data.iloc[result.splits.test].reset_index(drop=True)
+        _judge(result, test, _outcome(test[table.target].to_numpy(), table.task))
+    clock.lap("judge")
+    result.timings.update(clock.laps)
+    return result
+
+
+def _outcome(y: np.ndarray, task: str) -> np.ndarray:
+    return y.astype(float) if task == "regression" else y.astype(str).astype(object)
+
+
+def _fit_models(table: Table, s: Settings, fractions: tuple[float, float, float]) -> Distillation:
+    """Forest, importance, discovery, equation and tree, each on the rows it may see."""
     clock = _Clock()
     data, target, task = table.data, table.target, table.task
     y_all = data[target].to_numpy()
-    check_family(s.family, task, table.classes, y_all, target)   # fail before any fitting
     strata = y_all if task == "classification" else None
-    splits = make_splits(len(data), s.split, s.seed, strata)
+    splits = make_splits(len(data), fractions, s.seed, strata)
     disc, conf, test = (data.iloc[i].reset_index(drop=True) for i in (splits.discovery, splits.confirmation, splits.test))
     y_d, y_c, y_t = (d[target].to_numpy() for d in (disc, conf, test))
     if task == "regression":
@@ -154,15 +186,15 @@ def distill(table: Table, settings: Settings | None = None) -> Distillation:
     clock.lap("equation")
 
     _say(s, "distilling the surrogate tree")
-    tree = distill_tree(forest, Xd, model_frame(conf, table.features), model_frame(test, table.features),
+    # without a test split (small-data plan) the depth curve is drawn on the confirmation rows
+    tree = distill_tree(forest, Xd, model_frame(conf, table.features),
+                        model_frame(test if len(test) else conf, table.features),
                         depth=s.tree_depth, target_fidelity=s.target_fidelity, seed=s.seed,
                         min_leaf=s.min_samples_leaf, n_synthetic=s.synthetic_rows)
     clock.lap("tree")
 
     result = Distillation(table, s, splits, forest, importance, discovery, equation, tree, fills,
                           {}, {}, {}, list(table.notes) + list(discovery.notes) + list(equation.warnings))
-    _judge(result, test, y_t)
-    clock.lap("judge")
     result.timings = clock.laps
     return result
 
@@ -184,6 +216,30 @@ class _Clock:
         now = time.perf_counter()
         self.laps[stage] = self.laps.get(stage, 0.0) + now - self._last
         self._last = now
+
+
+def _judge_by_cross_validation(r: Distillation, plan: Plan) -> None:
+    """Out-of-fold predictions of the whole pipeline refitted per fold, pooled over repeats; the
+    loss interval's bootstrap draws original rows with all their repeats."""
+    table, task, classes = r.table, r.table.task, r.classes
+    y = _outcome(table.data[table.target].to_numpy(), task)
+    r.folds = fold_assignments(y, task, plan, r.settings.seed)
+    inner = dataclasses.replace(r.settings, split=plan.split)
+    oof = out_of_fold(table, inner, r.folds, lambda t, st: _fit_models(t, st, plan.split))
+    repeats, n = r.folds.shape
+    stacked = {m: p.reshape((repeats * n,) + p.shape[2:]) for m, p in oof.items()}
+    y_s = np.tile(y, repeats)
+    groups = np.tile(np.arange(n), repeats)
+    apparent = {m: metrics(y, r.predict(table.data, m), task, classes) for m in ("forest", "tree", "equation")}
+    r.evaluation = {"on": "cross-validation", "folds": int(r.folds.max()) + 1, "repeats": int(repeats),
+                    "n": int(n), "method": "repeated k-fold cross-validation of the whole pipeline "
+                                           "(forest, discovery, equation and tree refitted in every fold)",
+                    **{m: metrics(y_s, p, task, classes) for m, p in stacked.items()},
+                    "apparent": apparent}
+    r.fidelity = {m: fidelity(stacked["forest"], stacked[m], task) for m in ("tree", "equation")}
+    r.loss = {m: loss_with_interval(y_s, stacked["forest"], stacked[m], task, classes, resamples=r.settings.bootstrap,
+                                    seed=r.settings.seed, groups=groups)
+              for m in ("tree", "equation")}
 
 
 def _judge(r: Distillation, test: pd.DataFrame, y_t: np.ndarray) -> None:

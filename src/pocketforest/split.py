@@ -44,14 +44,18 @@ def make_splits(n_rows: int, fractions: tuple[float, float, float], seed: int,
     idx = np.arange(n_rows)
     n_test = int(round(t * n_rows))
     n_conf = int(round(c * n_rows))
-    if min(n_test, n_conf, n_rows - n_test - n_conf) < 10:
+    parts = (n_conf, n_rows - n_test - n_conf) + ((n_test,) if t > 0 else ())
+    if min(parts) < 10:
         raise InputError(f"too few rows ({n_rows}) for the splits {d:.2f}/{c:.2f}/{t:.2f}: "
                          "each part needs at least 10 rows; add rows or change --split")
     from sklearn.model_selection import train_test_split  # here, so `--split` is checked without loading it
 
     try:
-        rest, test = train_test_split(idx, test_size=n_test, random_state=seed,
-                                      stratify=None if strata is None else strata)
+        if n_test == 0:   # no test split: the small-data plan judges by cross-validation instead
+            rest, test = idx, np.array([], dtype=int)
+        else:
+            rest, test = train_test_split(idx, test_size=n_test, random_state=seed,
+                                          stratify=None if strata is None else strata)
         disc, conf = train_test_split(rest, test_size=n_conf, random_state=seed + 1,
                                       stratify=None if strata is None else strata[rest])
     except ValueError as exc:
