@@ -21,7 +21,7 @@ from .discovery import Discovery, Requests, discover
 from .equation import EquationFit, check_family, coefficient_budget, fit_equation, refit_for_scoring
 from .evaluate import loss_with_interval, metrics
 from .forest import ForestFit, fit_forest
-from .importance import Importance, per_tree_increases, summarise
+from .importance import Importance, oob_increases, summarise
 from .resample import Plan, choose_plan, fold_assignments, out_of_fold
 from .sizing import anticipated_r2
 from .intake import Table
@@ -157,8 +157,8 @@ def _fit_models(table: Table, s: Settings, fractions: tuple[float, float, float]
     _say(s, "ranking variables (out-of-bag permutation importance)")
     Xt_d = prep.transform(Xd)
     names = [f.name for f in table.features]
-    per_tree = per_tree_increases(forest, Xt_d, y_d, names, s.seed)
-    importance = summarise(per_tree, names)
+    increases = oob_increases(forest, Xt_d, y_d, names, s.seed)
+    importance = summarise(increases.per_tree, names)
     clock.lap("importance")
 
     family = check_family(s.family, task, forest.classes, y_all, target)
@@ -168,7 +168,7 @@ def _fit_models(table: Table, s: Settings, fractions: tuple[float, float, float]
     requests = Requests(seed=s.seed, quiet=s.quiet, max_terms=s.max_terms, keep=tuple(s.keep_vars),
                         drop=tuple(s.drop_vars), min_samples_leaf=s.min_samples_leaf,
                         budget=budget if s.cap_terms else None, estimation_rows=len(conf))
-    discovery = discover(forest, table.features, task, disc, y_d, importance, per_tree, fills, requests)
+    discovery = discover(forest, table.features, task, disc, y_d, importance, increases, fills, requests)
     clock.lap("discovery")
 
     _say(s, "fitting the equation on the confirmation rows")

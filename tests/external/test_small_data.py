@@ -30,7 +30,7 @@ pytestmark = pytest.mark.external
 SCHEMA = json.loads((ROOT / "src/pocketforest/schema/manifest.schema.json").read_text())
 
 
-def _ranked_discovery(forest, features, task, disc, y, importance, per_tree, fills, requests=None):
+def _ranked_discovery(forest, features, task, disc, y, importance, increases, fills, requests=None):
     """Stands in for the discovery step: main effects strongest first (by OOB permutation
     importance) and the product of the two strongest numeric columns, so the equation has a
     suggested term beyond the main effects to test."""

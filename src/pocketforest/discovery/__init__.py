@@ -20,13 +20,13 @@ import pandas as pd
 
 from ..errors import InputError
 from ..forest import ForestFit
-from ..importance import Importance
+from ..importance import Importance, Increases
 from ..intake import Feature
 from ..terms import Term
 from .context import Context, Requests
 from .interactions import PAIR_VARIABLES, search_pairs
 from .materiality import judge_materiality, top_ranked
-from .select import drop_one, select_terms
+from .select import drop_one, removal_reason, select_terms
 from .shape import attach_equation_forms, variable_shapes
 
 __all__ = ["Discovery", "Requests", "discover", "check_requests"]
@@ -48,16 +48,16 @@ class Discovery:
 
 
 def discover(forest: ForestFit, features: list[Feature], task: str, disc: pd.DataFrame, y: np.ndarray,
-             importance: list[Importance], per_tree: np.ndarray, fills: dict,
+             importance: list[Importance], increases: Increases, fills: dict,
              requests: Requests = Requests()) -> Discovery:
-    """``per_tree``: the [trees, features] out-of-bag increases behind ``importance``, in the
-    order of ``features``."""
+    """``increases``: the out-of-bag increases behind ``importance``, features in the order of
+    ``features``."""
     kinds = {f.name: f.kind for f in features}
     check_requests(kinds, requests.keep, requests.drop, requests.max_terms)
     ctx = Context(forest, list(features), task, disc, y, fills, requests)
 
     ctx.say("  which variables matter (out-of-bag importance against its null)")
-    mat = judge_materiality(ctx, per_tree, [f.name for f in features])
+    mat = judge_materiality(ctx, increases, [f.name for f in features])
     notes = list(mat.notes)
     material = list(mat.material)
     if not material:
@@ -94,7 +94,8 @@ def discover(forest: ForestFit, features: list[Feature], task: str, disc: pd.Dat
     main_variables = [t.variables[0] for t in terms if t.kind in ("linear", "categorical")]
     if sel.removed_main_effects:
         notes.append("main effects left out by the discovery-row selection (they added nothing once the other "
-                     "terms were in): " + ", ".join(sel.removed_main_effects))
+                     "terms were in): " + ", ".join(removal_reason(ctx, v, main_variables)
+                                                     for v in sel.removed_main_effects))
     attach_equation_forms(shapes, terms)
     return Discovery(terms, main_variables, pairs, shapes, notes,
                      {**mat.summary, "variables": {k: v.to_dict() for k, v in mat.evidence.items()}},

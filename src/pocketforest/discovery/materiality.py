@@ -1,25 +1,27 @@
-"""Which variables matter: the main forest's per-tree out-of-bag importances against a null
-calibrated on the data.
+"""Which variables matter: the main forest's out-of-bag importances, with a standard error over
+rows, against a null calibrated on the data.
 
 Every tree's out-of-bag error increase when one raw column is permuted (:mod:`pocketforest.
-importance`, computed once on *all* discovery rows) gives a mean and a standard error over trees;
-their ratio ``z`` grows with the rows for any real effect, so the test's power grows with the
-data (the old shadow forest saw at most 3,000 rows).
+importance`, computed once on *all* discovery rows) is kept per row: each row's increase averaged
+over the trees that left it out. The importance is the mean over rows and its standard error the
+spread over rows / sqrt(rows). Rows, unlike trees, are nearly independent draws, so this error says
+how far a useless column's importance strays with new data; the spread over trees does not (all
+trees grow on the same rows, so with more trees a noise column's z grows without bound: Strobl &
+Zeileis 2008, "Danger: high power!"). For a useless column the permuted rows are distributed like
+the real ones, so its importance is centred on zero, and ``z`` = importance / standard error grows
+with the rows only for a real effect: the test's power grows with the data (the shadow forest
+it replaces saw at most 3,000 rows).
 
-A useless column's importance is symmetric about zero: permuting it moves its splits at random,
-which no more often helps than hurts on rows the tree never saw. So the negative ``z`` values,
-which only useless columns produce, mirror the null distribution (Janitza, Celik & Boulesteix 2018,
-Advances in Data Analysis and Classification 12:885-915, who mirror the negative importances). We
-estimate the null's scale from the mirrored negatives (root mean square, never below 1, the
-scale if trees were independent) and call a column material when its ``z`` lies above that scale
-times the one-sided normal quantile at ``ALPHA`` / columns (Bonferroni, family-wise).
+The negative z values, which only useless columns produce, mirror the null distribution (Janitza,
+Celik & Boulesteix 2018, Advances in Data Analysis and Classification 12:885-915). Their root mean
+square estimates the null's scale (never below 1); a column is material when its z lies above that
+scale times the one-sided normal quantile at ``ALPHA`` / columns (Bonferroni, family-wise).
 
-The z-score alone is not a calibrated test (Strobl & Zeileis 2008: its power grows with the number
-of trees) — here it only opens the door. Every material column then has to earn its place in the
-discovery-row GLM, and the confirmation rows test what remains, so a false inclusion costs one
-coefficient the confirmation test shows as null, while a false exclusion would lose an effect for
-good. Correlated columns do not knock each other out: each keeps the importance the forest gives it
-and the GLM on the discovery rows decides between them.
+Materiality only opens the door. Every material column then has to stay in the discovery-row GLM,
+and the confirmation rows test what remains, so a false inclusion costs one coefficient the
+confirmation test shows as null, while a false exclusion would lose an effect for good.
+Correlated columns do not knock each other out: each keeps the importance the forest gives it, and
+only with enough rows may the GLM, which sees both, drop a stand-in (:mod:`.select`).
 """
 from __future__ import annotations
 
@@ -28,7 +30,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy import stats
 
-from ..importance import Importance
+from ..importance import Importance, Increases
 from .context import Context
 
 ALPHA = 0.05          # family-wise share of useless columns let through (common practice)
@@ -38,8 +40,8 @@ MIN_NULL_SCALE = 1.0  # z's standard deviation if the trees' increases were inde
 @dataclass
 class Evidence:
     """Typed record of one variable's materiality (the manifest prints it as a dict)."""
-    oob_importance: float
-    oob_se: float
+    oob_importance: float     # mean over rows (equals Breiman's mean over trees up to rows' weights)
+    oob_se: float             # standard error over rows
     z: float
     passed: bool
     requested: bool = False
@@ -74,12 +76,14 @@ def null_scale(z: np.ndarray) -> tuple[float, int]:
     return max(MIN_NULL_SCALE, float(np.sqrt(np.mean(neg ** 2)))), int(len(neg))
 
 
-def judge_materiality(ctx: Context, per_tree: np.ndarray, names: list[str]) -> Materiality:
-    """``per_tree``: [trees, features] out-of-bag increases in the order of ``names``."""
+def judge_materiality(ctx: Context, increases: Increases, names: list[str]) -> Materiality:
+    """``increases``: the out-of-bag increases of :func:`pocketforest.importance.oob_increases`,
+    features in the order of ``names``."""
     keep, drop = set(ctx.requests.keep), set(ctx.requests.drop)
-    t = len(per_tree)
-    mean = per_tree.mean(axis=0)
-    se = per_tree.std(axis=0, ddof=1) / np.sqrt(t) if t > 1 else np.full(len(names), np.inf)
+    rows = increases.per_row[np.all(np.isfinite(increases.per_row), axis=1)]
+    t = len(rows)
+    mean = rows.mean(axis=0) if t else np.zeros(len(names))
+    se = rows.std(axis=0, ddof=1) / np.sqrt(t) if t > 1 else np.full(len(names), np.inf)
     z = np.divide(mean, se, out=np.zeros_like(mean), where=se > 0)
     scale, negatives = null_scale(z)
     threshold = scale * float(stats.norm.ppf(1.0 - ALPHA / max(1, len(names))))
@@ -92,12 +96,12 @@ def judge_materiality(ctx: Context, per_tree: np.ndarray, names: list[str]) -> M
             material.append(name)
     material.sort(key=lambda v: -evidence[v].oob_importance)
     notes = _correlation_notes(ctx, material)
-    summary = {"rule": (f"z = mean / standard error of the per-tree out-of-bag importance on all {len(ctx.frame)} "
-                        f"discovery rows, above {threshold:.3g} = null scale {scale:.3g} (from {negatives} mirrored "
+    summary = {"rule": (f"z = mean / standard error over rows of the out-of-bag importance on all {t} "
+                        f"discovery rows with an out-of-bag prediction, above {threshold:.3g} = null scale {scale:.3g} (from {negatives} mirrored "
                         f"negative z values, at least 1) x the normal quantile at {ALPHA:g}/{len(names)} "
                         "(Janitza et al. 2018; Bonferroni over columns)"),
                "z_threshold": threshold, "null_scale": scale, "negative_z": negatives, "alpha": ALPHA,
-               "rows": int(len(ctx.frame)), "trees": int(t),
+               "rows": int(t), "trees": int(len(increases.per_tree)),
                "correlated_clusters": [{"variables": c, "max_abs_spearman": _max_rho(ctx, c)}
                                        for c in ctx.correlated_clusters(material)]}
     return Materiality(material, evidence, notes, summary)

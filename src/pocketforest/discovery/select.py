@@ -7,9 +7,9 @@ category × category cells. A candidate enters only if it lowers the extended Ba
 criterion of the GLM on the discovery rows: BIC (Schwarz 1978) plus 2·log(candidates of its kind)
 per entered term (extended BIC with γ = 1, Chen & Chen 2008, Biometrika 95:759-771), so trying many
 pairs does not let chance products in. A backward pass then removes what later entries made
-redundant, and main effects that only stand in for a correlated variable (the forest's
-importance test already vouched for every material variable; a proxy passes it too), unless a
-bend or product needs them (hierarchy) or the user asked for them.
+redundant and, given enough rows, main effects the GLM finds empty (a stand-in for a correlated
+variable passes the forest's importance test too), unless a bend or product needs them
+(hierarchy) or the user asked for them.
 
 Form complexity is sized to the rows that will estimate the equation: bends and products stop
 entering once the design would exceed the coefficient budget those rows support, two hinges on
@@ -33,14 +33,13 @@ SELECT_ROWS = {"regression": 20000, "classification": 4000}
 #: Two hinges cost one more coefficient than one bend and are easily fitted to noise: offered only
 #: when the estimation rows reach this many (common practice: tens of rows per coefficient).
 TWO_HINGE_ROWS = 400
-#: |Spearman| with another kept number from which a main effect may be removed as a stand-in
-#: (common practice: correlations above one half make one variable a usable proxy for another).
-PROXY_CORRELATION = 0.5
-#: ... and only from this many discovery rows. Fewer rows cannot tell a stand-in from a weaker real
-#: effect at BIC's penalty: on the wine data (178 rows, 89 for discovery) removing them cost the
-#: equation 0.05 of cross-validated accuracy (0.896 against 0.944 with every material variable kept
-#: and the fit penalised), so small tables keep what the forest vouched for and rely on shrinkage.
-PROXY_MIN_ROWS = 500
+#: From this many discovery rows a material main effect may leave the equation when the GLM on
+#: those rows says it adds nothing (BIC) — a stand-in for a correlated variable, or a chance
+#: pass of the importance test. Fewer rows cannot tell such a term from a weaker real effect at
+#: BIC's penalty: on the wine data (178 rows, 89 for discovery) removing them cost the equation
+#: 0.05 of cross-validated accuracy (0.896 against 0.944 with every material variable kept and the
+#: fit penalised), so small tables keep what the forest vouched for and rely on shrinkage.
+MAIN_EFFECT_REMOVAL_ROWS = 500
 #: Per-cell category × category candidates only when the pair has at most this many cells.
 MAX_CELLS = 12
 
@@ -322,10 +321,9 @@ def _forward_backward(ctx: Context, base: list[Term], candidates: list[Candidate
     while changed:
         changed = False
         needed = {v for k in chosen for t in by_key[k].terms for v in t.variables}
-        kept = [base[i].variables[0] for i in mains]
         options = [("term", k) for k in chosen] + [("main", i) for i in mains
                                                    if base[i].variables[0] not in needed | requested
-                                                   and _proxy(ctx, base[i].variables[0], kept)]
+                                                   and _removable(ctx)]
         for what, item in options:
             m2 = [i for i in mains if not (what == "main" and i == item)]
             c2 = [k for k in chosen if not (what == "term" and k == item)]
@@ -354,15 +352,21 @@ def _forward_backward(ctx: Context, base: list[Term], candidates: list[Candidate
     return Selection(terms, log, gains, n_rows, left, removed_mains)
 
 
-def _proxy(ctx: Context, var: str, kept: list[str]) -> bool:
-    """May this main effect leave? Only a number correlated with another kept one: the forest's
-    importance already tested every material variable, but a correlated stand-in for a real
-    effect passes that test too, and only the GLM, which sees both, can tell them apart."""
+def _removable(ctx: Context) -> bool:
+    """May material main effects leave? Only with enough discovery rows (see above)."""
+    return len(ctx.frame) >= MAIN_EFFECT_REMOVAL_ROWS
+
+
+def removal_reason(ctx: Context, var: str, kept: list[str]) -> str:
+    """Why a main effect left, for the note: the kept variable it stood in for, if any."""
     rho = ctx.rank_correlation
-    if var not in rho.index or len(ctx.frame) < PROXY_MIN_ROWS:
-        return False
-    others = [v for v in kept if v != var and v in rho.index]
-    return bool(others) and float(rho.loc[var, others].max()) >= PROXY_CORRELATION
+    if var in rho.index:
+        others = [v for v in kept if v != var and v in rho.index]
+        if others:
+            best = max(others, key=lambda v: rho.loc[var, v])
+            if rho.loc[var, best] >= 0.5:
+                return f"{var} (|Spearman| {rho.loc[var, best]:.2f} with {best}, which stays)"
+    return var
 
 
 def drop_one(terms: list[Term], data: pd.DataFrame, y: np.ndarray, *, task: str, classes: list[str] | None,
