@@ -158,7 +158,7 @@ def test_missing_target_rows_dropped_and_counted():
     assert t.rows_dropped_missing_target == 3
     assert len(t.data) == 47 and list(t.data.index) == list(range(47))
     assert any("3 row" in n for n in t.notes)
-    assert t.features[0].missing == pytest.approx(1 / 47)
+    assert t.features[0].missing == pytest.approx(1 / 47)  # 1 - mean of booleans: one rounding
 
 
 def test_auto_task_detection():
@@ -286,7 +286,7 @@ def test_categorical_numbers_as_text():
     df["zip"] = [["01234", "1.50", "7"][i % 3] for i in range(N)]
     t = prepare(df, "y", categorical=["grade", "zip"])
     grade = next(f for f in t.features if f.name == "grade")
-    assert grade.categories == ["1", "2"] and grade.missing == pytest.approx(1 / 3)
+    assert grade.categories == ["1", "2"] and grade.missing == pytest.approx(1 / 3)  # count ratio: one rounding
     assert set(t.data["grade"]) == {"1", "2", ""}
     assert next(f for f in t.features if f.name == "zip").categories == ["01234", "1.5", "7"]
     assert [category_text(v) for v in (3, 3.0, 2.5, "4.0", "1e3", True, None, "0042")] == [
@@ -332,7 +332,7 @@ def test_parquet_native_types(tmp_path):
     t = load(path, "y")
     kinds = {f.name: f.kind for f in t.features}
     assert kinds == {"n": "numeric", "f": "numeric", "flag": "categorical", "cat": "categorical"}
-    assert t.features[1].missing == pytest.approx(1 / N)
+    assert t.features[1].missing == pytest.approx(1 / N)  # count ratio: one rounding
     assert set(t.data["flag"]) <= {"True", "False"}
 
 
