@@ -58,7 +58,7 @@ class Bundle:
     def _run(self, data: pd.DataFrame, model: str) -> dict:
         from .runtime import Scorer
         from .score import features_of
-        from .intake import coerce_for_scoring
+        from .intake.coerce import coerce_for_scoring
         if model not in self._scorers:
             self._scorers[model] = Scorer(self.path, model, self.manifest)
         typed = coerce_for_scoring(data, features_of(self.manifest), source="<DataFrame>")

@@ -25,7 +25,9 @@ import pandas as pd
 from .bundle_io import read_manifest
 from .errors import InputError
 from .evaluate import loss_with_interval, metrics
-from .intake import category_text, coerce_for_scoring, read_table
+from .intake.coerce import coerce_for_scoring
+from .intake.reading import read_table
+from .intake.values import category_text
 from .runtime import MODELS, Scorer, envelope_count
 from .score import features_of
 from .surrogate import fidelity

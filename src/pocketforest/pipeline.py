@@ -21,7 +21,7 @@ from .equation import EquationFit, check_family, fit_equation
 from .evaluate import loss_with_interval, metrics
 from .forest import ForestFit, fit_forest
 from .importance import Importance, oob_permutation_importance
-from .intake import Table
+from .features import Table
 from .split import Splits, make_splits
 from .surrogate import TreeFit, distill_tree, fidelity
 from .terms import main_effects

@@ -23,7 +23,7 @@ from ..design import model_frame
 from ..errors import InputError
 from ..forest import ForestFit
 from ..importance import Importance
-from ..intake import Table
+from ..features import Table
 from ..terms import Term
 from .effects import (ale_numeric, forest_predictor, partial_dependence_brute, partial_dependence_recursion,
                       quantile_grid)

@@ -26,7 +26,7 @@ from sklearn.inspection import permutation_importance
 from ..design import make_preprocessor, model_frame
 from ..forest import fit_forest
 from ..importance import Importance, oob_rows
-from ..intake import Feature
+from ..features import Feature
 from .effects import forest_predictor
 
 ALPHA = 0.05          # family-wise share of useless columns allowed through (common practice)
