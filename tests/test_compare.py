@@ -45,7 +45,7 @@ def _manifest(bundle: Path) -> dict:
 
 @pytest.mark.parametrize("name", ["regression", "multiclass"])
 def test_compare_on_the_test_rows_reproduces_the_manifest(fitted, name):
-    from pocketforest.compare import compare
+    from pocketforest.scoring.compare import compare
     bundle, csv, _ = fitted[name]
     m = _manifest(bundle)
     c = compare(bundle, csv)
@@ -66,7 +66,7 @@ def test_compare_on_the_test_rows_reproduces_the_manifest(fitted, name):
 
 
 def test_parquet_rows_give_the_same_numbers(fitted, tmp_path):
-    from pocketforest.compare import compare
+    from pocketforest.scoring.compare import compare
     bundle, csv, _ = fitted["regression"]
     pq = tmp_path / "rows.parquet"
     pd.read_csv(csv).to_parquet(pq, index=False)
@@ -96,7 +96,7 @@ def test_manifest_records_training_profile(fitted):
 
 def test_drift_is_measured(fitted, tmp_path):
     """Constructed shift: x1 moved by one training sd, a colour never seen, a third of rows past x2's max."""
-    from pocketforest.compare import compare
+    from pocketforest.scoring.compare import compare
     bundle, csv, _ = fitted["regression"]
     m = _manifest(bundle)
     feat = {f["name"]: f for f in m["features"]}
@@ -157,7 +157,7 @@ def test_bad_input_is_one_error_line(fitted, tmp_path, capsys, mutate, expect):
 
 
 def test_unknown_class_rows_are_left_out_and_counted(fitted, tmp_path):
-    from pocketforest.compare import compare
+    from pocketforest.scoring.compare import compare
     bundle, csv, _ = fitted["multiclass"]
     rows = pd.read_csv(csv)
     rows.loc[rows.index[:5], "y"] = "enormous"

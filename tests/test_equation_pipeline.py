@@ -10,7 +10,7 @@ import pandas as pd
 from conftest import run_cli
 from pocketforest.intake import prepare
 from pocketforest.pipeline import Settings, distill
-from pocketforest.verify import verify_bundle
+from pocketforest.scoring.verify import verify_bundle
 
 
 def _counts(n=400, seed=0):

@@ -12,13 +12,13 @@ import onnx
 import pandas as pd
 import pytest
 
-from pocketforest import runners
+from pocketforest.scoring import runners
 from pocketforest.export.code import FILES
 from pocketforest.export.latex import tex_escape
 from pocketforest.intake import prepare
 from pocketforest.pipeline import Settings, distill
 from pocketforest.thresholds import double_split
-from pocketforest.verify import verify_bundle
+from pocketforest.scoring.verify import verify_bundle
 
 from conftest import synthetic_table
 

@@ -16,14 +16,14 @@ import onnx
 import pandas as pd
 import pytest
 
-from pocketforest import runners
+from pocketforest.scoring import runners
 from pocketforest.equation import fit_equation
 from pocketforest.export.jscode import equation_js
 from pocketforest.export.onnx_models import equation_model
 from pocketforest.export.pycode import equation_py
 from pocketforest.export.sql import equation_sql
 from pocketforest.intake import prepare
-from pocketforest.runtime import feeds
+from pocketforest.scoring.runtime import feeds
 from pocketforest.terms import Term
 
 from conftest import synthetic_table

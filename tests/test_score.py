@@ -11,8 +11,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from pocketforest.runtime import Scorer
-from pocketforest.score import score_file
+from pocketforest.scoring.runtime import Scorer
+from pocketforest.scoring.score import score_file
 
 from conftest import SRC, run_cli, synthetic_table
 
@@ -155,7 +155,7 @@ def test_chunk_size_does_not_change_predictions(bundles, tmp_path, chunk):
 
 def test_tuned_sessions_give_the_same_predictions(bundles):
     """runtime.make_session (for the benchmark): thread settings change speed, never results."""
-    from pocketforest.runtime import feeds, make_session
+    from pocketforest.scoring.runtime import feeds, make_session
     bundle = bundles["multiclass"]
     manifest = json.loads((bundle / "manifest.json").read_text())
     rows = _new_rows(n=40)

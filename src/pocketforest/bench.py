@@ -138,7 +138,7 @@ def _child_distill(config: dict) -> dict:
     from .design import model_frame
     from .intake import load
     from .pipeline import Settings, distill
-    from .runtime import feeds
+    from .scoring.runtime import feeds
 
     cpu0 = time.process_time()  # CPU seconds of all threads: steadier than wall time on a shared machine
     t0 = time.perf_counter()

@@ -18,12 +18,12 @@ from .defaults import TREES
 from .design import fill_values, make_preprocessor, model_frame
 from .discovery import Discovery, discover
 from .equation import EquationFit, check_family, fit_equation
-from .evaluate import loss_with_interval, metrics
+from .evaluate import fidelity, loss_with_interval, metrics
 from .forest import ForestFit, fit_forest
 from .importance import Importance, oob_permutation_importance
 from .features import Table
 from .split import Splits, make_splits
-from .surrogate import TreeFit, distill_tree, fidelity
+from .surrogate import TreeFit, distill_tree
 from .terms import main_effects
 
 

@@ -23,7 +23,7 @@ from pocketforest.discovery import Discovery
 from pocketforest.intake import prepare
 from pocketforest.pipeline import Settings, distill
 from pocketforest.terms import Term, main_effects
-from pocketforest.verify import verify_bundle
+from pocketforest.scoring.verify import verify_bundle
 
 pytestmark = pytest.mark.external
 SCHEMA = json.loads((ROOT / "src/pocketforest/schema/manifest.schema.json").read_text())
