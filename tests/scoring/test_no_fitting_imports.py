@@ -1,8 +1,9 @@
 """The scoring folder runs from a bundle alone: importing it loads no fitting library.
 
 DESIGN.md: scoring needs only the bundle and onnxruntime. Each module of ``pocketforest.scoring``
-(found by listing the package, so a new module is covered too) is imported in a fresh interpreter
-and ``sys.modules`` is inspected.
+(found by listing the package, so a new module is covered too), and the schema and scoring
+coercion it uses from outside the folder, is imported in a fresh interpreter and ``sys.modules``
+is inspected.
 
 One documented exception: ``compare`` judges the models with scikit-learn's metrics, the reference
 library for every figure (METHODS.md). It may load exactly what ``import sklearn.metrics`` loads in
@@ -37,6 +38,8 @@ METRICS_ALLOWED = {"pocketforest.scoring.compare"}
 
 SCORING_MODULES = ["pocketforest.scoring"] + sorted(
     f"pocketforest.scoring.{m.name}" for m in pkgutil.iter_modules(pocketforest.scoring.__path__))
+#: what the scoring side imports from outside the folder: the schema and the scoring coercion
+SCORING_MODULES += ["pocketforest.features", "pocketforest.intake.coerce"]
 NEGATIVE = ["pocketforest.forest", "pocketforest.equation"]   # modules of this project that fit models
 
 
