@@ -21,7 +21,6 @@ import pytest
 from conftest import run_cli
 
 CORPUS = Path(__file__).parent / "bad_inputs"
-HAS_COMPARE = (Path(__file__).resolve().parents[1] / "src" / "pocketforest" / "compare.py").is_file()
 TREES = ["--trees", "10", "-q"]
 
 
@@ -91,21 +90,19 @@ def _cases(ctx: dict) -> dict[str, tuple[list[str], int]]:
         "verify: folder is not a bundle": (["verify", str(ctx["folder"])], 2),
         "verify: manifest not JSON": (["verify", str(ctx["bad_manifest"])], 2),
         "verify: bundle does not exist": (["verify", str(ctx["dir"] / "no_bundle_here")], 2),
+        # compare
+        "compare: target column missing": (["compare", str(b), str(c / "score_missing_column.csv")], 2),
+        "compare: empty file": (["compare", str(b), str(c / "empty.csv")], 2),
+        "compare: header only": (["compare", str(b), str(c / "header_only.csv")], 2),
+        "compare: text in numeric column": (["compare", str(b), str(c / "text_in_numeric.csv")], 2),
+        "compare: all-missing target": (["compare", str(b), str(c / "all_missing_target.csv")], 2),
+        "compare: text target for a regression bundle": (["compare", str(b), str(c / "class_with_one_row.csv")], 2),
+        "compare: wrong extension": (["compare", str(b), str(c / "wrong_extension.xlsx")], 2),
+        "compare: directory as data": (["compare", str(b), str(ctx["folder"])], 2),
+        "compare: altered forest.onnx": (["compare", str(ctx["altered_forest"]), str(c / "train_valid.csv")], 2),
+        "compare: no bundle there": (["compare", str(ctx["dir"] / "no_bundle_here"), str(c / "train_valid.csv")], 2),
+        "compare: --max-loss not a number": (["compare", str(b), str(c / "train_valid.csv"), "--max-loss", "abc"], 2),
     }
-    if HAS_COMPARE:  # `compare` landed on main separately; its cases run once the branches meet
-        cases.update({
-            "compare: target column missing": (["compare", str(b), str(c / "score_missing_column.csv")], 2),
-            "compare: empty file": (["compare", str(b), str(c / "empty.csv")], 2),
-            "compare: header only": (["compare", str(b), str(c / "header_only.csv")], 2),
-            "compare: text in numeric column": (["compare", str(b), str(c / "text_in_numeric.csv")], 2),
-            "compare: all-missing target": (["compare", str(b), str(c / "all_missing_target.csv")], 2),
-            "compare: text target for a regression bundle": (["compare", str(b), str(c / "class_with_one_row.csv")], 2),
-            "compare: wrong extension": (["compare", str(b), str(c / "wrong_extension.xlsx")], 2),
-            "compare: directory as data": (["compare", str(b), str(ctx["folder"])], 2),
-            "compare: altered forest.onnx": (["compare", str(ctx["altered_forest"]), str(c / "train_valid.csv")], 2),
-            "compare: no bundle there": (["compare", str(ctx["dir"] / "no_bundle_here"), str(c / "train_valid.csv")], 2),
-            "compare: --max-loss not a number": (["compare", str(b), str(c / "train_valid.csv"), "--max-loss", "abc"], 2),
-        })
     return cases
 
 

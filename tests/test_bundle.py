@@ -31,7 +31,7 @@ def test_bundle_is_complete_and_valid(bundles, name):
 
 @pytest.mark.parametrize("name", ["regression", "binary", "multiclass"])
 def test_verify_passes(bundles, name):
-    from pocketforest.verify import verify_bundle
+    from pocketforest.scoring.verify import verify_bundle
     checks = verify_bundle(bundles[name])
     assert all(c.ok for c in checks), [c.line() for c in checks]
     assert sum("onnxruntime, Python" in c.form for c in checks) == 3
@@ -53,7 +53,7 @@ def test_onnx_matches_python_on_missing_and_unseen(bundles):
     (Known trap from METHODS.md: converted trees must not rely on native missing routing.)"""
     from pocketforest.intake import prepare
     from pocketforest.pipeline import Settings, distill
-    from pocketforest.runtime import Scorer
+    from pocketforest.scoring.runtime import Scorer
     df = synthetic_table(n=400, seed=7)
     result = distill(prepare(df, "y"), Settings(trees=30, seed=1, quiet=True, bootstrap=50))
     rows = synthetic_table(n=200, seed=8).drop(columns="y")
@@ -68,7 +68,7 @@ def test_onnx_matches_python_on_missing_and_unseen(bundles):
 
 
 def test_multiclass_probabilities_follow_manifest_class_order(bundles):
-    from pocketforest.runtime import Scorer
+    from pocketforest.scoring.runtime import Scorer
     path = bundles["multiclass"]
     manifest = json.loads((path / "manifest.json").read_text())
     ref = pd.read_csv(path / "reference.csv", keep_default_na=False, na_values=[""])

@@ -37,7 +37,7 @@ def _without_time(manifest: dict) -> dict:
 
 @pytest.mark.parametrize("task,k", [("regression", 2), ("classification", 3)])
 def test_same_seed_same_numbers_and_predictions(tmp_path, monkeypatch, task, k):
-    from pocketforest.runtime import Scorer
+    from pocketforest.scoring.runtime import Scorer
 
     csv = tmp_path / "data.csv"
     synthetic_table(n=300, seed=5, task=task, n_classes=k).to_csv(csv, index=False)

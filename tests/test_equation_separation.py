@@ -28,6 +28,7 @@ def test_firth_in_a_two_by_two_table_adds_one_half_to_each_cell():
     assert is_separated(X, y, 2)
     fit = firth_fit(X, y, 2)
     assert fit.converged
+    # firth_fit polishes with Newton steps until a step < 1e-12: log odds of size ~1-3 to ~1e-12
     assert fit.params[1] == pytest.approx(np.log((a + .5) * (d + .5) / ((b + .5) * (c + .5))), rel=1e-8)
     assert fit.params[0] == pytest.approx(np.log((c + .5) / (d + .5)), rel=1e-8)
 
@@ -44,6 +45,8 @@ def test_firth_solves_the_modified_score_equations():
     XtWX = X.T @ (X * w[:, None])
     h = w * np.einsum("ij,jk,ik->i", X, np.linalg.inv(XtWX), X)
     U = X.T @ (y - p + h * (0.5 - p))
+    # at a Newton step < 1e-12 the score is about information (~80 * 0.25 * |x|^2 ~ 1e2) times
+    # the step, ~1e-10, plus summation rounding ~ n * eps; 1e-7 is a wide margin over both
     assert np.max(np.abs(U)) < 1e-7
 
 
@@ -55,6 +58,8 @@ def test_multinomial_penalty_gradient_matches_finite_differences():
     value, grad = _objective(beta, X, Y)
     num = np.array([(_objective(beta + e, X, Y)[0] - _objective(beta - e, X, Y)[0]) / 2e-6
                     for e in np.eye(6) * 1e-6])
+    # central differences with h = 1e-6: truncation ~h^2 * f''' ~ 1e-12, rounding ~eps * |f| / h
+    # ~ 1e-8 (|f| ~ 60); atol 1e-6 covers both, a wrong derivative term is O(0.1)
     np.testing.assert_allclose(grad, num, rtol=1e-5, atol=1e-6)
 
 

@@ -16,14 +16,14 @@ import onnx
 import pandas as pd
 import pytest
 
-from pocketforest import runners
+from pocketforest.scoring import runners
 from pocketforest.equation import fit_equation
 from pocketforest.export.jscode import equation_js
 from pocketforest.export.onnx_models import equation_model
 from pocketforest.export.pycode import equation_py
 from pocketforest.export.sql import equation_sql
 from pocketforest.intake import prepare
-from pocketforest.runtime import feeds
+from pocketforest.scoring.runtime import feeds
 from pocketforest.terms import Term
 
 from conftest import synthetic_table
@@ -64,6 +64,15 @@ def _fresh_rows(seed: int = 22) -> pd.DataFrame:
     rows.loc[2::6, "site"] = "east"          # never seen in training: scores as the reference level
     rows.loc[3::7, "x3"] = 2.5                # outside the training range [-1, 1]
     return rows
+
+
+def _as_float32_inputs(rows: pd.DataFrame) -> pd.DataFrame:
+    """The rows as the ONNX graph receives them: numeric inputs rounded to float32 (the contract's
+    input type), then widened again, so the double reference sees exactly the graph's inputs."""
+    out = rows.copy()
+    for col in out.select_dtypes("number").columns:
+        out[col] = out[col].astype(np.float32).astype(np.float64)
+    return out
 
 
 def _fit(terms, task="regression", k=2):
@@ -111,8 +120,13 @@ def test_each_term_kind_in_every_equation_form(kind, tmp_path):
     want = eq.predict(rows)
     assert np.isfinite(want).all()
     got = _onnx_outputs(eq, table, rows)["prediction"].reshape(-1)
-    # float32 output of a double computation: relative 1e-6 (common practice for float32 round-off)
-    np.testing.assert_allclose(got, want, rtol=1e-6, atol=1e-6 * max(1.0, np.abs(want).max()))
+    # The graph computes in double from float32 inputs and rounds the result to float32 once: from
+    # the same float32 inputs the only gap is that rounding, at most half a float32 ulp (2^-24
+    # relative); rtol one ulp (2^-23), atol for double summation order near zero (~k * eps).
+    want32 = eq.predict(_as_float32_inputs(rows))
+    np.testing.assert_allclose(got, want32, rtol=2.0 ** -23, atol=1e-12 * max(1.0, np.abs(want32).max()))
+    # The code forms compute in double from the double inputs: only summation order and libm's last
+    # bit differ (~k * eps * sum|terms| < 1e-13 here), so 1e-12 absolute and relative.
     for form, res in _code_outputs(eq, table, rows, tmp_path).items():
         np.testing.assert_allclose(res["prediction"], want, rtol=1e-12, atol=1e-12, err_msg=form)
 
@@ -127,8 +141,11 @@ def test_all_kinds_together_for_classification(k, tmp_path):
     rows = _fresh_rows()
     want = eq.predict(rows)
     got = _onnx_outputs(eq, table, rows)
-    np.testing.assert_allclose(got["probabilities"], want, atol=1e-6)
+    # double softmax from float32 inputs, rounded once to float32: |error| <= 2^-24 * p <= 2^-24
+    # from the same float32 inputs; atol one float32 ulp at 1 (2^-23)
+    np.testing.assert_allclose(got["probabilities"], eq.predict(_as_float32_inputs(rows)), rtol=0, atol=2.0 ** -23)
     np.testing.assert_array_equal(got["label"], np.asarray(eq.classes)[want.argmax(1)])
+    # code forms: double throughout, only summation order and libm's last bit differ (~1e-15)
     for form, res in _code_outputs(eq, table, rows, tmp_path).items():
         np.testing.assert_allclose(res["probabilities"], want, atol=1e-12, err_msg=form)
         np.testing.assert_array_equal(res["label"], np.asarray(eq.classes)[want.argmax(1)], err_msg=form)
@@ -148,5 +165,6 @@ def test_extreme_scores_give_probabilities_not_errors(tmp_path):
     rows = _fresh_rows().head(6).copy()
     rows["x1"] = [-1e6, -1e4, -1.0, 1.0, 1e4, 1e6]
     want = eq.predict(rows)
+    # saturated scores give exactly 0 or 1 in double; the others differ by rounding only (~1e-15)
     for form, res in _code_outputs(eq, table, rows, tmp_path).items():
         np.testing.assert_allclose(res["probabilities"], want, atol=1e-12, err_msg=form)

@@ -39,6 +39,8 @@ def test_oob_rows_reproduce_scikit_learn_oob_prediction():
         total[rows] += est.predict(Xt[rows])
         count[rows] += 1
     ok = count > 0
+    # scikit-learn adds the per-tree OOB predictions in the same tree order and divides by the
+    # same counts: same float64 operations in the same order, exact by construction
     np.testing.assert_allclose(total[ok] / count[ok], fit.oob_prediction[ok], rtol=1e-10)
 
 

@@ -16,7 +16,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from pocketforest import runners
+from pocketforest.scoring import runners
 from pocketforest.intake import load
 from pocketforest.pipeline import Settings, distill
 

@@ -110,6 +110,8 @@ def test_equation_curve_is_its_own_partial_dependence(with_terms):
     mid = (grid[:-1] + grid[1:]) / 2
     below = coef["x2"] + coef["x2 * x3"] * x3
     above = below + coef["max(0, x2 - 0.2)"]
+    # differencing row means whose other terms cancel: rounding ~2 * eps * |prediction| / step
+    # (~1e-14 here); rtol 1e-8 / atol 1e-10 are far above it
     np.testing.assert_allclose(slopes[grid[1:] <= 0.2], below, rtol=1e-8, atol=1e-10)
     np.testing.assert_allclose(slopes[grid[:-1] >= 0.2], above, rtol=1e-8, atol=1e-10)
     assert len(mid) == len(slopes)
@@ -136,6 +138,7 @@ def test_stored_discovery_curve_is_used(with_terms):
         r.discovery.shapes = {}
     # both lines centred, so the stored curve's own convention does not matter
     assert c["source"] == "discovery step" and c["forest"] == [[-1.0, 0.0, 1.0]] and c["grid"] == grid
+    # centred: three values summing to zero within ~3 * eps * |value|
     assert len(c["equation"][0]) == 3 and abs(sum(c["equation"][0])) < 1e-9 and "centred" in c["scale"]
 
 

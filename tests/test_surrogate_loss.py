@@ -26,9 +26,13 @@ def test_regression_interval_equals_the_plain_loop_with_scikit_learn_r2():
     a, b = y + rng.normal(scale=0.4, size=150), y + rng.normal(scale=0.8, size=150)
     got = loss_with_interval(y, a, b, "regression", None, resamples=300, seed=9)
     lo, hi = _loop_reference(y, a, b, skm.r2_score, 300, 9)
+    # R^2 from weighted row sums (one matrix product) vs scikit-learn's per-resample sums: the same
+    # terms summed in another order, ~n * eps * sum|terms| ~ 1e-13 on R^2; quantiles interpolate
+    # continuously, so abs 1e-10
     assert got["ci_low"] == pytest.approx(lo, abs=1e-10) and got["ci_high"] == pytest.approx(hi, abs=1e-10)
     assert got["value"] == skm.r2_score(y, a) - skm.r2_score(y, b)
     rmse = lambda t, p: np.sqrt(skm.mean_squared_error(t, p))  # noqa: E731
+    # point values come from the same scikit-learn calls: exact by construction
     assert got["also"]["rmse"]["value"] == pytest.approx(rmse(y, b) - rmse(y, a), rel=1e-12)
     lo, hi = _loop_reference(y, b, a, rmse, 300, 9)   # surrogate minus forest: positive = worse
     assert got["also"]["rmse"]["ci_low"] == pytest.approx(lo, abs=1e-10)
@@ -48,9 +52,11 @@ def test_classification_interval_equals_the_plain_loop_with_scikit_learn_metrics
     got = loss_with_interval(y, a, b, "classification", classes, resamples=120, seed=4)
     acc = lambda t, p: skm.accuracy_score(t, p.argmax(1))  # noqa: E731
     lo, hi = _loop_reference(codes, a, b, acc, 120, 4)
+    # accuracies are counts / n: integer sums are exact in float64, so exact by construction
     assert (got["ci_low"], got["ci_high"]) == pytest.approx((lo, hi), abs=1e-12)
     ll = lambda t, p: skm.log_loss(t, p, labels=list(range(k)))  # noqa: E731
     lo, hi = _loop_reference(codes, b, a, ll, 120, 4)
+    # the same clipped logs summed in another order over 200 rows: ~n * eps * 5 ~ 2e-13
     assert got["also"]["log_loss"]["ci_low"] == pytest.approx(lo, abs=1e-9)
     assert got["also"]["log_loss"]["ci_high"] == pytest.approx(hi, abs=1e-9)
     br = (lambda t, p: skm.brier_score_loss(t, p[:, 1])) if k == 2 else \
@@ -67,6 +73,8 @@ def test_fast_point_values_agree_with_scikit_learn_to_rounding():
     slow = loss_with_interval(y, a, b, "classification", ["a", "b", "c"], resamples=50, seed=1)
     fast = loss_with_interval(y, a, b, "classification", ["a", "b", "c"], resamples=50, seed=1,
                               reference_values=False)
+    # sums over 300 rows by matrix product vs scikit-learn: values <= ~5, rounding
+    # <= n * eps * 5 ~ 3e-13 (accuracy: integer counts, exact)
     assert fast["value"] == pytest.approx(slow["value"], abs=1e-12)
     for m in ("log_loss", "brier"):
         assert fast["also"][m]["value"] == pytest.approx(slow["also"][m]["value"], abs=1e-12)

@@ -23,6 +23,7 @@ def test_centred_number_by_category_interactions_fit_with_treatment_columns():
     est = {r["term"]: r for r in eq.table}
     row = est["(x a - 0.3) * [g = q]"]
     assert row["ci_low"] < 2.0 < row["ci_high"]
+    # identity link: predict is this same product of the same design (same float64 operations)
     np.testing.assert_allclose(eq.predict(df), eq.design(df) @ eq.coef)
 
 

@@ -32,7 +32,7 @@ class Bundle:
     """A written bundle, scored through onnxruntime only (no fitting libraries needed)."""
 
     def __init__(self, path: str | os.PathLike):
-        from .bundle_io import read_manifest
+        from .scoring.bundle_io import read_manifest
         self.path = str(path)
         self.manifest = read_manifest(path)
         self._scorers: dict = {}
@@ -56,9 +56,9 @@ class Bundle:
         return self._run(data, model)["probabilities"]
 
     def _run(self, data: pd.DataFrame, model: str) -> dict:
-        from .runtime import Scorer
-        from .score import features_of
-        from .intake import coerce_for_scoring
+        from .scoring.runtime import Scorer
+        from .scoring.score import features_of
+        from .intake.coerce import coerce_for_scoring
         if model not in self._scorers:
             self._scorers[model] = Scorer(self.path, model, self.manifest)
         typed = coerce_for_scoring(data, features_of(self.manifest), source="<DataFrame>")

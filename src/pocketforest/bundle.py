@@ -15,7 +15,7 @@ from pathlib import Path
 import numpy as np
 
 from . import __version__
-from .bundle_io import FORMAT, FORMAT_VERSION, sha256
+from .scoring.bundle_io import FORMAT, FORMAT_VERSION, sha256
 from .errors import InputError
 from .export.onnx_models import convert_pipeline, equation_model
 from .export.text import equation_text, tree_text

@@ -176,13 +176,13 @@ def _run(args: argparse.Namespace) -> int:
             raise InputError(f"demo data {DEMO_DATA} not found: run `python demo_data/make_demo.py` first")
         return _run_distill(str(DEMO_DATA), DEMO_TARGET, _demo_args(args))
     if args.command == "score":
-        from .score import score_file
+        from .scoring.score import score_file
         n = score_file(args.bundle, args.data, args.model, args.out, args.keep, quiet=args.quiet)
         if args.out and not args.quiet:
             print(f"wrote {n} predictions to {args.out}", file=sys.stderr)
         return 0
     if args.command == "verify":
-        from .verify import verify_bundle
+        from .scoring.verify import verify_bundle
         checks = verify_bundle(args.bundle, quiet=args.quiet)
         for c in checks:
             print(c.line())
@@ -193,7 +193,7 @@ def _run(args: argparse.Namespace) -> int:
               + ("" if not bad else ": the bundle does NOT reproduce its reference rows"))
         return 1 if bad else 0
     if args.command == "compare":
-        from .compare import check_out, compare, write_json
+        from .scoring.compare import check_out, compare, write_json
         if args.out:
             check_out(args.out)
         if args.max_outside is not None and not 0.0 <= args.max_outside <= 1.0:

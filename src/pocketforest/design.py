@@ -18,7 +18,7 @@ from sklearn.compose import ColumnTransformer
 from sklearn.impute import SimpleImputer
 from sklearn.preprocessing import OneHotEncoder
 
-from .intake import Feature
+from .features import Feature
 
 MISSING_LEVEL = ""
 

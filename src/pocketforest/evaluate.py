@@ -1,4 +1,6 @@
-"""Accuracy of each model on the test rows, and the surrogates' loss with a bootstrap interval.
+"""Judging the models: accuracy of each on the test rows, the surrogates' fidelity to the forest,
+and their loss with a bootstrap interval. Metrics and fidelity live together here, computed by
+scikit-learn's metrics (the reference library, METHODS.md), for distill and compare alike.
 
 Loss is the forest's metric minus the surrogate's on the same test rows (R² for regression,
 accuracy for classification): positive means the simple model gives up accuracy. Its interval is
@@ -13,7 +15,7 @@ product, so 1,000 resamples of 25,000 rows take well under a second.
 from __future__ import annotations
 
 import numpy as np
-from sklearn.metrics import (accuracy_score, brier_score_loss, log_loss, mean_absolute_error,
+from sklearn.metrics import (accuracy_score, brier_score_loss, cohen_kappa_score, log_loss, mean_absolute_error,
                              mean_squared_error, r2_score, roc_auc_score)
 
 LOG_LOSS_EPS = np.finfo(float).eps   # the clipping scikit-learn's log_loss applies (float64)
@@ -43,6 +45,15 @@ def metrics(y: np.ndarray, pred: np.ndarray, task: str, classes: list[str] | Non
             out["auc"] = float(roc_auc_score(codes, proba, multi_class="ovr", average="macro",
                                              labels=list(range(k)))) if present else float("nan")
     return out
+
+
+def fidelity(forest_pred: np.ndarray, tree_pred: np.ndarray, task: str) -> dict[str, float]:
+    """Regression: R² of tree against forest. Classification: label agreement and Cohen's kappa."""
+    if task == "regression":
+        return {"r2": float(r2_score(forest_pred, tree_pred))}
+    a, b = np.argmax(forest_pred, axis=1), np.argmax(tree_pred, axis=1)
+    kappa = cohen_kappa_score(a, b) if len(np.unique(np.concatenate([a, b]))) > 1 else 1.0
+    return {"agreement": float(np.mean(a == b)), "kappa": float(kappa)}
 
 
 def _codes(y: np.ndarray, classes: list[str]) -> np.ndarray:

@@ -19,14 +19,14 @@ from .defaults import TREES
 from .design import fill_values, make_preprocessor, model_frame
 from .discovery import Discovery, Requests, discover
 from .equation import EquationFit, check_family, coefficient_budget, fit_equation, refit_for_scoring
-from .evaluate import loss_with_interval, metrics
+from .evaluate import fidelity, loss_with_interval, metrics
 from .forest import ForestFit, fit_forest
 from .importance import Importance, oob_increases, summarise
 from .resample import Plan, choose_plan, fold_assignments, out_of_fold
 from .sizing import anticipated_r2
-from .intake import Table
+from .features import Table
 from .split import Splits, make_splits
-from .surrogate import TreeFit, distill_tree, fidelity
+from .surrogate import TreeFit, distill_tree
 from .terms import main_effects
 
 

@@ -15,10 +15,10 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-from sklearn.metrics import cohen_kappa_score, r2_score
 from sklearn.pipeline import Pipeline
 from sklearn.tree import DecisionTreeClassifier, DecisionTreeRegressor
 
+from .evaluate import fidelity
 from .forest import ForestFit
 from .threads import thread_map
 from .thresholds import snap_tree_thresholds
@@ -96,15 +96,6 @@ def _fit_tree(Xt: np.ndarray, target: np.ndarray, task: str, depth: int, seed: i
                      sample_weight=np.concatenate([w[keep], np.full(k, 1e-12)]))
     snap_tree_thresholds(tree)
     return tree
-
-
-def fidelity(forest_pred: np.ndarray, tree_pred: np.ndarray, task: str) -> dict[str, float]:
-    """Regression: R² of tree against forest. Classification: label agreement and Cohen's kappa."""
-    if task == "regression":
-        return {"r2": float(r2_score(forest_pred, tree_pred))}
-    a, b = np.argmax(forest_pred, axis=1), np.argmax(tree_pred, axis=1)
-    kappa = cohen_kappa_score(a, b) if len(np.unique(np.concatenate([a, b]))) > 1 else 1.0
-    return {"agreement": float(np.mean(a == b)), "kappa": float(kappa)}
 
 
 def _forest_output(forest: ForestFit, Xt: np.ndarray) -> np.ndarray:

@@ -50,7 +50,7 @@ def test_friedman1_terms_and_accuracy(seed, tmp_path):
     assert sum(r["kept"] for r in tested) == 1
 
     if seed == 0:
-        from pocketforest.verify import verify_bundle
+        from pocketforest.scoring.verify import verify_bundle
         path = result.write(tmp_path / "bundle")
         manifest = json.loads((tmp_path / "bundle" / "manifest.json").read_text())
         schema = json.loads((ROOT / "src/pocketforest/schema/manifest.schema.json").read_text())

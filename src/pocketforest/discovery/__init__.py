@@ -21,7 +21,7 @@ import pandas as pd
 from ..errors import InputError
 from ..forest import ForestFit
 from ..importance import Importance, Increases
-from ..intake import Feature
+from ..features import Feature
 from ..terms import Term
 from .context import Context, Requests
 from .interactions import PAIR_VARIABLES, search_pairs

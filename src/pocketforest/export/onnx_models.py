@@ -14,7 +14,7 @@ from skl2onnx.common.data_types import FloatTensorType, StringTensorType
 
 from ..equation import EquationFit
 from ..expr import Const, Is, Log, Node, Num, Pos, Prod, Square, Sub
-from ..intake import Feature
+from ..features import Feature
 
 # ai.onnx.ml opset 3 (TreeEnsembleRegressor/Classifier). Measured with skl2onnx 1.20 and
 # onnxruntime 1.32 on a 200-tree forest: asking for ai.onnx.ml 5 still emits the same legacy

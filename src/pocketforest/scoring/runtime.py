@@ -12,8 +12,8 @@ import numpy as np
 import onnxruntime as ort
 import pandas as pd
 
+from ..errors import InputError
 from .bundle_io import bundle_file, read_manifest
-from .errors import InputError
 
 MODELS = ("forest", "tree", "equation")
 

@@ -21,9 +21,11 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from ..errors import InputError
+from ..features import Feature
+from ..intake.coerce import coerce_for_scoring
+from ..intake.reading import iter_table
 from .bundle_io import read_manifest
-from .errors import InputError
-from .intake import Feature, coerce_for_scoring, iter_table
 from .runtime import Scorer, envelope_count
 
 CHUNK_ROWS = 20_000  # a 100,000-row chunk of text cells peaked near 250 MB; 20,000 near 45 MB

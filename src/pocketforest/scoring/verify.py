@@ -13,7 +13,7 @@ libraries wrote there, and passes when the largest difference is within the form
 * labels: identical, except on rows where the reference's top two probabilities are closer than
   the form's probability tolerance.
 
-The forms run where they will live (:mod:`pocketforest.runners`): nothing from the bundle is
+The forms run where they will live (:mod:`pocketforest.scoring.runners`): nothing from the bundle is
 imported or executed in this process. A check whose runtime is absent (no Node.js, or npm could
 not install onnxruntime-node) is reported as skipped with the reason; a skip does not fail verify.
 """
@@ -26,9 +26,9 @@ from typing import Callable
 import numpy as np
 import pandas as pd
 
-from .bundle_io import bundle_file, read_manifest, sha256
-from .errors import BundleError
+from ..errors import BundleError
 from . import runners
+from .bundle_io import bundle_file, read_manifest, sha256
 from .runtime import MODELS, Scorer
 
 VALUE_RTOL = 1e-4

@@ -11,8 +11,8 @@ from pathlib import Path
 
 import pytest
 
-from pocketforest import verify
-from pocketforest.bundle_io import sha256
+from pocketforest.scoring import verify
+from pocketforest.scoring.bundle_io import sha256
 
 from conftest import SRC
 

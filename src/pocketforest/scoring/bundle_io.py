@@ -9,7 +9,7 @@ import json
 import os
 from pathlib import Path
 
-from .errors import BundleError
+from ..errors import BundleError
 
 FORMAT = "pocketforest-bundle"
 FORMAT_VERSION = 1

@@ -21,7 +21,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .expr import sql_ident
+from ..expr import sql_ident
 
 NODE_DIR_ENV = "POCKETFOREST_NODE_DIR"
 ORT_NODE_PACKAGE = "onnxruntime-node@1"

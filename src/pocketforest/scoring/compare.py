@@ -22,13 +22,14 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from ..errors import InputError
+from ..evaluate import fidelity, loss_with_interval, metrics
+from ..intake.coerce import coerce_for_scoring
+from ..intake.reading import read_table
+from ..intake.values import category_text
 from .bundle_io import read_manifest
-from .errors import InputError
-from .evaluate import loss_with_interval, metrics
-from .intake import category_text, coerce_for_scoring, read_table
 from .runtime import MODELS, Scorer, envelope_count
 from .score import features_of
-from .surrogate import fidelity
 
 #: |standardised mean difference| above which a column is flagged as shifted. 0.1 is the usual
 #: balance threshold for SMDs (Austin, P. C. 2009, "Balance diagnostics for comparing the

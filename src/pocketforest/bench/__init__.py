@@ -1,0 +1,16 @@
+"""`python -m pocketforest.bench`: the contract's figures, measured on this machine.
+
+Every figure is a ratio of two things measured side by side in the same run, printed with its
+target and a pass/short mark; ``--quick`` runs small sizes (a smoke run for the tests, nothing
+judged) and ``--out`` also writes the results as JSON.
+
+Sections, each a submodule with ``run(quick, root, say) -> common.Section``:
+
+* :mod:`.speed`  — distill, scoring, memory and size figures (always run);
+* :mod:`.honest` — null rejection and loss-interval coverage from :mod:`pocketforest.simulate`
+  (always run).
+
+A new section (power, anchor, tree, cluster, ...) is a new submodule registered in
+:data:`.cli.SECTIONS` with its own flag; :mod:`.common` holds what sections share (the seeded
+data, :class:`~.common.Figure`, judging, child processes, timing).
+"""

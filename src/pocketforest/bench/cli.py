@@ -1,0 +1,76 @@
+"""The benchmark's command line: which sections run, the terminal text and the JSON file."""
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+import tempfile
+from dataclasses import asdict
+from pathlib import Path
+
+from . import honest, speed
+from .common import machine
+
+#: Every section as (name, flag, module, help). flag None: always runs. A new section is a new
+#: submodule with ``run(quick, root, say)`` and a line here, e.g.
+#: ("power", "--power", power, "statistical power of the materiality test").
+SECTIONS = [
+    ("speed", None, speed, "distill, scoring, memory and size figures"),
+    ("honest", None, honest, "null rejection and loss-interval coverage"),
+]
+#: Child-process functions by name, for ``--child`` (each section's own).
+CHILDREN = {**speed.CHILDREN}
+
+
+def run(quick: bool = False, work: str | None = None, say=print, only: set[str] | None = None) -> dict:
+    """Run the chosen sections (the always-on ones plus ``only``); return one JSON-ready dict."""
+    tmp = tempfile.TemporaryDirectory(prefix="pf-bench-", dir=work)
+    root = Path(tmp.name)
+    figures, raw, sizes, lines = [], {}, {}, []
+    try:
+        for name, flag, module, _ in SECTIONS:
+            if flag is not None and name not in (only or set()):
+                continue
+            section = module.run(quick, root, say)
+            figures += section.figures
+            raw.update(section.raw)
+            sizes.update(section.sizes)
+            lines += section.lines
+    finally:
+        tmp.cleanup()
+    return {"quick": quick, "machine": machine(), "sizes": sizes, "figures": [asdict(f) for f in figures],
+            "raw": raw, "_objects": figures, "_lines": lines}
+
+
+def render(result: dict) -> str:
+    timed = not result["quick"]
+    lines = ["pocketforest benchmark" + (" (--quick: small sizes, nothing judged)" if not timed else ""),
+             f"machine: {result['machine']['cpu']} x{result['machine']['cores']}, load average at end "
+             f"{result['machine']['load_average_at_end']}", ""]
+    lines += [f.line(timed) for f in result["_objects"]]
+    lines += result["_lines"]
+    return "\n".join(lines)
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(prog="python -m pocketforest.bench",
+                                     description="Measure pocketforest's speed, memory and size figures on this machine.")
+    parser.add_argument("--quick", action="store_true", help="small sizes, well under a minute (nothing judged)")
+    parser.add_argument("--out", help="also write the results as JSON to this file")
+    parser.add_argument("--work", help="folder for the temporary data and bundle (default: system temp)")
+    for name, flag, _, text in SECTIONS:
+        if flag is not None:
+            parser.add_argument(flag, dest=f"section_{name}", action="store_true", help=f"also run: {text}")
+    parser.add_argument("--child", nargs=2, help=argparse.SUPPRESS)
+    args = parser.parse_args(argv)
+    if args.child:
+        kind, cfg = args.child
+        print(json.dumps(CHILDREN[kind](json.loads(Path(cfg).read_text()))))
+        return 0
+    only = {name for name, flag, _, _ in SECTIONS if flag is not None and getattr(args, f"section_{name}")}
+    result = run(args.quick, args.work, say=lambda t: print(t, file=sys.stderr, flush=True), only=only)
+    print(render(result))
+    if args.out:
+        clean = {k: v for k, v in result.items() if not k.startswith("_")}
+        Path(args.out).write_text(json.dumps(clean, indent=2) + "\n", encoding="utf-8")
+    return 0

@@ -1,0 +1,49 @@
+"""Typing new rows for scoring exactly as the training rows were typed.
+
+Used by ``score``, ``compare`` and the Python API on a bundle alone: it needs only the manifest's
+feature list, pandas and numpy (no fitting library).
+"""
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from ..errors import InputError
+from ..features import Feature
+from .messages import check_finite, examples, plural, quote_list
+from .values import category_series, parse_numbers, plain
+
+
+def coerce_for_scoring(
+    df: pd.DataFrame, features: list[Feature], *, source: str, first_row: int = 0
+) -> pd.DataFrame:
+    """Type new rows exactly like the training data so every model sees the same input.
+
+    Returns only the features' columns (in feature order) and keeps ``df``'s index so the
+    caller can line predictions up with other columns of the same chunk. Unseen categories
+    pass through; the models decide what they mean.
+    """
+    missing_cols = [f.name for f in features if f.name not in df.columns]
+    if missing_cols:
+        raise InputError(
+            f"{source}: missing column(s) {quote_list(missing_cols)} that the model needs: add them (cells may be empty)"
+        )
+    lines = np.arange(len(df)) + first_row + 2
+    out: dict[str, pd.Series] = {}
+    for f in features:
+        s = df[f.name]
+        if isinstance(s, pd.DataFrame):
+            raise InputError(f"{source}: duplicate column '{f.name}': rename the copies so each name is unique")
+        s = plain(s)
+        if f.kind == "numeric":
+            values, bad = parse_numbers(s)
+            if bad.any():
+                raise InputError(
+                    f"{source}: column '{f.name}' must be numeric but has {plural(int(bad.sum()), 'text value')} "
+                    f"({examples(s, bad, lines)}): fix them or leave the cells empty"
+                )
+            check_finite(values, f.name, lines, source)
+            out[f.name] = pd.Series(values, index=df.index, dtype="float64")
+        else:
+            out[f.name] = category_series(s)
+    return pd.DataFrame(out, index=df.index, columns=[f.name for f in features])

@@ -1,0 +1,63 @@
+"""Pieces of the one-line error messages: quoting, plurals, examples with line numbers, suggestions."""
+from __future__ import annotations
+
+import difflib
+from collections.abc import Sequence
+
+import numpy as np
+import pandas as pd
+
+from ..errors import InputError
+
+#: How many offending values a message quotes.
+EXAMPLES = 3
+
+
+def suggest(name: str, columns: Sequence[str]) -> str:
+    """'; did you mean ...' from close matches, case-insensitive too, plus the column list."""
+    lower = {c.lower(): c for c in columns}
+    close = [c for c in columns if c.lower() == name.lower()]
+    for m in difflib.get_close_matches(name.lower(), list(lower), n=3, cutoff=0.6):
+        if lower[m] not in close:
+            close.append(lower[m])
+    for m in difflib.get_close_matches(name, list(columns), n=3, cutoff=0.6):
+        if m not in close:
+            close.append(m)
+    hint = f"; did you mean {' or '.join(repr(c) for c in close[:3])}?" if close else ""
+    shown = list(columns[:20])
+    listing = ", ".join(shown) + (", ..." if len(columns) > 20 else "")
+    return f"{hint} (columns: {listing})"
+
+
+def plural(n: int, noun: str) -> str:
+    return f"{n} {noun}" + ("" if n == 1 else "s")
+
+
+def quote_list(names: Sequence[str]) -> str:
+    return ", ".join(f"'{n}'" for n in names)
+
+
+def shorten(text: str, limit: int = 60) -> str:
+    text = text.replace("\n", " ").replace("\r", " ")
+    return text if len(text) <= limit else text[: limit - 3] + "..."
+
+
+def printable(sep: str) -> str:
+    return "\\t" if sep == "\t" else sep
+
+
+def examples(s: pd.Series, mask: np.ndarray, lines: np.ndarray) -> str:
+    idx = np.flatnonzero(mask)[:EXAMPLES]
+    parts = [f"'{shorten(str(s.iloc[i]), 30)}' at line {int(lines[i])}" for i in idx]
+    more = ", ..." if mask.sum() > len(idx) else ""
+    return ", ".join(parts) + more
+
+
+def check_finite(values: np.ndarray, col: str, lines: np.ndarray, source: str) -> None:
+    inf = np.isinf(values)
+    if inf.any():
+        where = ", ".join(str(int(x)) for x in lines[np.flatnonzero(inf)[:EXAMPLES]])
+        raise InputError(
+            f"{source}: column '{col}' has infinite values (line {where}{', ...' if inf.sum() > EXAMPLES else ''}): "
+            "replace them with finite numbers or leave the cells empty"
+        )

@@ -1,0 +1,322 @@
+"""Reading CSV/TSV/Parquet files, whole or in chunks, with every file problem as one clear line.
+
+CSV/TSV files are read as text and typed column by column later (not by pandas' guesses),
+because a single stray word in a numeric column should be reported, not silently turn the column
+into categories. Column names and missing-value text are cleaned the same way for every format.
+"""
+from __future__ import annotations
+
+import csv
+import os
+import re
+import warnings
+from collections.abc import Iterator, Sequence
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from ..errors import InputError
+from .messages import printable, quote_list, shorten
+from .values import clean_text, plain
+
+_EXTENSIONS = {".csv": ",", ".tsv": "\t", ".parquet": None}
+_DELIMITER_NAMES = {",": "comma", "\t": "tab", ";": "semicolon", "|": "pipe"}
+
+
+def read_table(path: str | os.PathLike[str], columns: Sequence[str] | None = None) -> pd.DataFrame:
+    """Read a whole CSV/TSV/Parquet file into a frame with missing values as NaN.
+
+    CSV/TSV columns stay text (typing happens in :func:`prepare` / :func:`coerce_for_scoring`);
+    Parquet columns keep their native types, with text columns cleaned the same way as CSV.
+    ``columns`` reads only those columns (the ones absent from the file are skipped silently so
+    :func:`coerce_for_scoring` can name them all at once); parsing text is the slow part.
+    """
+    p, sep = _check_path(path)
+    if sep is None:
+        df = _read_parquet(p, columns)
+        if len(df) == 0:
+            raise InputError(f"{p}: has no rows: write the data rows into the Parquet file")
+        return df
+    header = _csv_header(p, sep)
+    names, kwargs = _csv_selection(header, columns, sep)
+    with _csv_errors(p, sep, header):
+        df = pd.read_csv(p, **kwargs)
+    if len(df) == 0:
+        raise InputError(f"{p}: has a header but no data rows: add rows below the header")
+    return _finish_csv_frame(df, names, p)
+
+
+def iter_table(
+    path: str | os.PathLike[str], chunksize: int = 100_000, columns: Sequence[str] | None = None
+) -> Iterator[tuple[int, pd.DataFrame]]:
+    """Yield ``(first_row, frame)`` chunks so big files can be scored in bounded memory.
+
+    ``first_row`` is the 0-based data row of the chunk's first row (pass it to
+    :func:`coerce_for_scoring` so line numbers in errors are right); each frame has a fresh
+    0-based index and is cleaned exactly like :func:`read_table` (``columns`` as there).
+    """
+    p, sep = _check_path(path)
+    first = 0
+    if sep is None:
+        import pyarrow.parquet as pq
+
+        try:
+            pf = pq.ParquetFile(p)
+            raw = _parquet_selection(pf.schema_arrow.names, columns)
+            batches = pf.iter_batches(batch_size=chunksize, columns=raw)
+        except (OSError, ValueError) as exc:  # pyarrow's ArrowInvalid is a ValueError
+            raise _parquet_error(p, exc) from None
+        while True:
+            try:
+                batch = next(batches, None)
+            except (OSError, ValueError) as exc:
+                raise _parquet_error(p, exc) from None
+            if batch is None:
+                break
+            df = _clean_parquet_frame(batch.to_pandas(), p)
+            yield first, df
+            first += len(df)
+    else:
+        header = _csv_header(p, sep)
+        names, kwargs = _csv_selection(header, columns, sep)
+        with _csv_errors(p, sep, header):
+            reader = pd.read_csv(p, chunksize=chunksize, **kwargs)
+        while True:
+            # the warnings filter must not stay active while the caller runs, so enter per chunk
+            with _csv_errors(p, sep, header):
+                chunk = next(reader, None)
+            if chunk is None:
+                break
+            chunk = _finish_csv_frame(chunk.reset_index(drop=True), names, p)
+            yield first, chunk
+            first += len(chunk)
+    if first == 0:
+        raise InputError(f"{p}: has a header but no data rows: add rows below the header")
+
+
+def _csv_selection(header: list[str], columns: Sequence[str] | None, sep: str) -> tuple[list[str], dict[str, Any]]:
+    """Column names to expect and read_csv arguments, restricted to ``columns`` if given."""
+    kwargs = _csv_kwargs(sep)
+    if columns is None:
+        return header, kwargs
+    wanted = set(map(str, columns))
+    positions = [i for i, name in enumerate(header) if name in wanted]
+    # usecols=[] would also drop the rows; read one column and remove it later instead
+    kwargs["usecols"] = positions or [0]
+    return [header[i] for i in positions] if positions else [], kwargs
+
+
+def _parquet_selection(names: Sequence[Any], columns: Sequence[str] | None) -> list[Any] | None:
+    if columns is None:
+        return None
+    wanted = set(map(str, columns))
+    return [n for n in names if str(n).strip() in wanted]
+
+
+def _check_path(path: str | os.PathLike[str]) -> tuple[Path, str | None]:
+    """Validate extension and existence before any parser gets a chance to fail obscurely."""
+    p = Path(path)
+    ext = p.suffix.lower()
+    if ext not in _EXTENSIONS:
+        shown = f"'{p.suffix}'" if p.suffix else "no extension"
+        raise InputError(
+            f"{p}: unsupported file type ({shown}): use a .csv, .tsv or .parquet file"
+        )
+    if not p.exists():
+        raise InputError(f"{p}: file not found: check the path")
+    if p.is_dir():
+        raise InputError(f"{p}: is a directory, not a data file: give the path of a .csv, .tsv or .parquet file")
+    try:
+        size = p.stat().st_size
+        with open(p, "rb"):
+            pass
+    except OSError as exc:
+        raise InputError(f"{p}: cannot be read ({exc.strerror or exc}): check the file permissions") from None
+    if size == 0:
+        raise InputError(f"{p}: is empty: it needs a header line and data rows")
+    return p, _EXTENSIONS[ext]
+
+
+def _csv_kwargs(sep: str) -> dict[str, Any]:
+    """Everything as text, no NA guessing (we apply our own missing tokens)."""
+    return dict(
+        sep=sep,
+        dtype=str,
+        keep_default_na=False,
+        na_filter=False,
+        encoding="utf-8-sig",
+        index_col=False,
+        skip_blank_lines=True,
+    )
+
+
+def _not_utf8(p: Path) -> InputError:
+    return InputError(f"{p}: is not UTF-8 text: re-save it with UTF-8 encoding")
+
+
+def _csv_header(p: Path, sep: str) -> list[str]:
+    """Read the raw header (pandas would silently rename duplicates) and check its names."""
+    try:
+        with open(p, encoding="utf-8-sig", newline="") as fh:
+            row: list[str] = []
+            for row in csv.reader(fh, delimiter=sep):
+                if any(cell.strip() for cell in row):
+                    break
+            else:
+                row = []
+    except UnicodeDecodeError:
+        raise _not_utf8(p) from None
+    except csv.Error as exc:
+        raise InputError(f"{p}: header line cannot be parsed ({exc}): fix the quoting in the first line") from None
+    if not row:
+        raise InputError(f"{p}: is empty: it needs a header line and data rows")
+    header = [cell.strip() for cell in row]
+    if len(header) == 1:
+        _check_delimiter(p, sep, header[0])
+    blank = [str(i + 1) for i, name in enumerate(header) if not name]
+    if blank:
+        where = "position" if len(blank) == 1 else "positions"
+        raise InputError(
+            f"{p}: column {where} {', '.join(blank)} of the header {'has' if len(blank) == 1 else 'have'} "
+            f"no name: give every column a name in the first line (or remove empty trailing columns)"
+        )
+    dups = sorted({name for name in header if header.count(name) > 1})
+    if dups:
+        raise InputError(f"{p}: duplicate column names {quote_list(dups)}: rename them so each is unique")
+    return header
+
+
+def _check_delimiter(p: Path, sep: str, only: str) -> None:
+    """A one-column header holding another delimiter means the file is split wrongly."""
+    for other in ("\t", ";", ",", "|"):
+        if other != sep and other in only:
+            if other == "\t":
+                hint = "rename it to .tsv"
+            elif other == ",":
+                hint = "rename it to .csv"
+            else:
+                hint = "re-save it comma-separated as .csv (or tab-separated as .tsv)"
+            raise InputError(
+                f"{p}: header '{shorten(only)}' looks {_DELIMITER_NAMES[other]}-separated, but a "
+                f"{p.suffix.lower()} file must be {_DELIMITER_NAMES[sep]}-separated: {hint}"
+            )
+
+
+class _csv_errors:
+    """Context manager turning pandas/codec failures during CSV parsing into InputError."""
+
+    def __init__(self, p: Path, sep: str, header: list[str]) -> None:
+        self.p, self.sep, self.header = p, sep, header
+        self._warn: warnings.catch_warnings | None = None
+
+    def __enter__(self) -> "_csv_errors":
+        self._warn = warnings.catch_warnings()
+        self._warn.__enter__()
+        # pandas only *warns* (and drops data) when the first data row is too long.
+        warnings.simplefilter("error", pd.errors.ParserWarning)
+        return self
+
+    def __exit__(self, etype: type | None, exc: BaseException | None, tb: Any) -> bool:
+        assert self._warn is not None
+        self._warn.__exit__(None, None, None)
+        if exc is None or isinstance(exc, InputError):
+            return False
+        p = self.p
+        if isinstance(exc, UnicodeDecodeError):
+            raise _not_utf8(p) from None
+        if isinstance(exc, pd.errors.EmptyDataError):
+            raise InputError(f"{p}: is empty: it needs a header line and data rows") from None
+        if isinstance(exc, (pd.errors.ParserError, pd.errors.ParserWarning)):
+            m = re.search(r"Expected (\d+) fields in line (\d+), saw (\d+)", str(exc))
+            if m:
+                line, saw = int(m.group(2)), int(m.group(3))
+            else:
+                line, saw = self._find_long_row()
+            if line:
+                raise InputError(
+                    f"{p}: line {line} has {saw} fields but the header has {len(self.header)}: "
+                    f"fix that row (quote values containing '{printable(self.sep)}')"
+                ) from None
+            raise InputError(f"{p}: cannot be parsed as {_DELIMITER_NAMES[self.sep]}-separated text ({shorten(str(exc))}): check quoting and delimiters") from None
+        return False
+
+    def _find_long_row(self) -> tuple[int, int]:
+        """Locate the first over-long row ourselves; only used on the error path."""
+        try:
+            with open(self.p, encoding="utf-8-sig", newline="") as fh:
+                reader = csv.reader(fh, delimiter=self.sep)
+                for row in reader:
+                    if len(row) > len(self.header):
+                        return reader.line_num, len(row)
+        except (UnicodeDecodeError, csv.Error):
+            pass
+        return 0, 0
+
+
+def _finish_csv_frame(df: pd.DataFrame, header: list[str], p: Path) -> pd.DataFrame:
+    """Put back the exact header names and apply the missing-value rules."""
+    if not header:  # a column selection that matched nothing: keep the row count only
+        return df.iloc[:, :0]
+    if len(df.columns) != len(header):  # defensive: pandas and csv disagree on the header
+        raise InputError(f"{p}: header has {len(header)} names but pandas found {len(df.columns)} columns: check quoting in the first line")
+    df.columns = header
+    _check_short_rows(df, p)
+    for col in header:
+        df[col] = clean_text(df[col])
+    return df
+
+
+def _check_short_rows(df: pd.DataFrame, p: Path) -> None:
+    """A row whose whole text landed in the first column and holds another delimiter was written
+    with a different separator; pandas would quietly pad it with empty cells."""
+    if df.shape[1] < 2 or len(df) == 0:
+        return
+    first = df.iloc[:, 0].astype(str)
+    rest_empty = (df.iloc[:, 1:].astype(str) == "").all(axis=1)
+    if not rest_empty.any():
+        return
+    own = _EXTENSIONS.get(p.suffix.lower())
+    for other in (o for o in (";", "\t", "|", ",") if o != own):
+        hit = (rest_empty & first.str.contains(other, regex=False)).to_numpy()
+        if hit.any():
+            line = int(np.flatnonzero(hit)[0]) + 2
+            raise InputError(
+                f"{p}: line {line} holds one field with '{printable(other)}' in it while the header has "
+                f"{df.shape[1]} columns: the file mixes delimiters; re-save it with one delimiter throughout"
+            )
+
+
+def _read_parquet(p: Path, columns: Sequence[str] | None = None) -> pd.DataFrame:
+    import pyarrow.parquet as pq
+
+    try:
+        table = pq.read_table(p, columns=_parquet_selection(pq.read_schema(p).names, columns))
+        df = table.to_pandas()
+    except (OSError, ValueError) as exc:  # ArrowInvalid subclasses ValueError
+        raise _parquet_error(p, exc) from None
+    return _clean_parquet_frame(df, p).reset_index(drop=True)
+
+
+def _parquet_error(p: Path, exc: BaseException) -> InputError:
+    return InputError(
+        f"{p}: cannot be read as Parquet ({shorten(str(exc).splitlines()[0] if str(exc) else type(exc).__name__)}): "
+        "the file may be truncated or corrupt; write it again"
+    )
+
+
+def _clean_parquet_frame(df: pd.DataFrame, p: Path) -> pd.DataFrame:
+    """Same column-name and missing-text rules as CSV; native numeric types stay."""
+    names = [str(c).strip() for c in df.columns]
+    blank = [str(i + 1) for i, n in enumerate(names) if not n]
+    if blank:
+        raise InputError(f"{p}: column position(s) {', '.join(blank)} have no name: name every column")
+    dups = sorted({n for n in names if names.count(n) > 1})
+    if dups:
+        raise InputError(f"{p}: duplicate column names {quote_list(dups)}: rename them so each is unique")
+    df = df.copy()
+    df.columns = names
+    for col in names:
+        df[col] = plain(df[col])
+    return df

@@ -1,0 +1,123 @@
+"""Value normalisation: one set of rules for what a cell means, shared by fitting and scoring.
+
+Text is stripped and the missing-value tokens become NaN; categorical values and class labels get
+one canonical text (:func:`category_text`) whether they came from CSV text, Parquet integers or
+floats; numbers are parsed with a mask of the present cells that are not numbers, so callers can
+report them instead of silently treating a column as categories.
+"""
+from __future__ import annotations
+
+import math
+import re
+from collections.abc import Sequence
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+#: Text values (after stripping whitespace) that mean "missing"; the empty string too.
+MISSING_TOKENS: frozenset[str] = frozenset({"", "NA", "N/A", "NaN", "nan", "null", "NULL", "None"})
+
+_INT_RE = re.compile(r"^[+-]?\d+$")
+_NUMBER_RE = re.compile(r"^[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?$")
+_LEADING_ZERO_RE = re.compile(r"^[+-]?0\d")
+
+
+def plain(s: pd.Series) -> pd.Series:
+    """Categorical dtype to its values, text cleaned; a frame built in code gets the file rules too."""
+    if isinstance(s.dtype, pd.CategoricalDtype):
+        s = s.astype(object)
+    return clean_text(s) if _is_textlike(s) else s
+
+
+def _is_textlike(s: pd.Series) -> bool:
+    return pd.api.types.is_string_dtype(s.dtype) or s.dtype == object
+
+
+def clean_text(s: pd.Series) -> pd.Series:
+    """Strip whitespace and turn missing tokens into NaN (text columns only)."""
+    if pd.api.types.is_string_dtype(s.dtype) and s.dtype != object:
+        s = s.str.strip()
+    elif s.dtype == object:
+        s = s.map(lambda v: v.strip() if isinstance(v, str) else v)
+    else:
+        return s
+    return s.mask(s.isin(MISSING_TOKENS))
+
+
+def category_text(value: Any) -> str:
+    """The text of one categorical value or class label.
+
+    Numbers become their shortest form with integer-valued floats as ``"1"`` (not ``"1.0"``),
+    so CSV text, Parquet ints and Parquet floats of the same value agree. Text with leading zeros
+    (codes such as ``"007"``) and very long digit strings (ids) is kept exactly.
+    """
+    if value is None or (isinstance(value, float) and math.isnan(value)):
+        return ""
+    if isinstance(value, (bool, np.bool_)):
+        return "True" if value else "False"
+    if isinstance(value, (int, np.integer)):
+        return str(int(value))
+    if isinstance(value, (float, np.floating)):
+        f = float(value)
+        if math.isnan(f):
+            return ""
+        if f.is_integer():
+            return str(int(f))
+        return repr(f)
+    text = str(value).strip()
+    if text in MISSING_TOKENS:
+        return ""
+    if _LEADING_ZERO_RE.match(text):
+        return text
+    if _INT_RE.match(text):
+        return str(int(text))
+    if _NUMBER_RE.match(text):
+        f = float(text)
+        if math.isfinite(f):
+            if f.is_integer() and abs(f) < 2**53:
+                return str(int(f))
+            return repr(f)
+    return text
+
+
+def category_series(s: pd.Series) -> pd.Series:
+    """Object column of str, "" for missing; maps distinct values once for speed."""
+    present = s.notna()
+    out = pd.Series("", index=s.index, dtype=object)
+    if present.any():
+        vals = s[present]
+        uniq = pd.unique(vals.to_numpy(dtype=object))
+        mapping = {u: category_text(u) for u in uniq}
+        out[present] = vals.map(mapping).astype(object)
+    return out
+
+
+def is_boolean(s: pd.Series) -> bool:
+    if pd.api.types.is_bool_dtype(s.dtype):
+        return True
+    return s.dtype == object and pd.api.types.infer_dtype(s, skipna=True) == "boolean"
+
+
+def parse_numbers(s: pd.Series) -> tuple[np.ndarray, np.ndarray]:
+    """Float view of a column and a mask of present values that are not numbers."""
+    present = s.notna().to_numpy()
+    if pd.api.types.is_numeric_dtype(s.dtype) and not pd.api.types.is_bool_dtype(s.dtype):
+        values = s.to_numpy(dtype="float64", na_value=np.nan)
+    else:
+        conv = pd.to_numeric(s, errors="coerce")
+        values = conv.to_numpy(dtype="float64", na_value=np.nan)
+    bad = present & np.isnan(values)
+    return values, bad
+
+
+def sort_labels(labels: Sequence[str]) -> list[str]:
+    """Numeric-looking labels sort by value ("2" before "10"), others lexicographically."""
+    labels = list(labels)
+    try:
+        keys = [float(x) for x in labels]
+    except ValueError:
+        return sorted(labels)
+    if any(math.isnan(k) for k in keys):
+        return sorted(labels)
+    return [x for _, x in sorted(zip(keys, labels))]

@@ -1,0 +1,100 @@
+"""Intake, reading: CSV/TSV/Parquet whole or in chunks, column selection, and every file error."""
+from __future__ import annotations
+
+import pandas as pd
+import pytest
+
+from pocketforest.errors import InputError
+from pocketforest.intake import iter_table, load, read_table
+
+from intake_data import csv_text, frame, raises, write
+
+def test_csv_missing_tokens_and_whitespace(tmp_path):
+    text = "a , b,c\n 1 ,NA, x \n2,N/A,null\n3, ,None\n4,nan,NULL\n5,NaN,\n"
+    df = read_table(write(tmp_path, "d.csv", text))
+    assert list(df.columns) == ["a", "b", "c"]
+    assert df["a"].tolist() == ["1", "2", "3", "4", "5"]
+    assert df["b"].isna().all()
+    assert df["c"].iloc[0] == "x" and df["c"].iloc[1:].isna().all()
+
+
+def test_bom_csv_tsv_and_parquet_agree(tmp_path):
+    base = frame(45)
+    bom = write(tmp_path, "bom.CSV", b"\xef\xbb\xbf" + csv_text(base).encode())
+    tsv = write(tmp_path, "d.tsv", csv_text(base, "\t"))
+    pq = tmp_path / "d.parquet"
+    native = base.assign(x=base["x"].astype(float), y=base["y"].astype(float))
+    native.to_parquet(pq)
+    from_bom = read_table(bom)
+    assert list(from_bom.columns) == ["x", "color", "y"]  # no BOM glued to the first name
+    tables = [load(p, "y") for p in (bom, tsv, pq)]
+    for t in tables[1:]:
+        pd.testing.assert_frame_equal(t.data, tables[0].data)
+        assert [f.to_dict() for f in t.features] == [f.to_dict() for f in tables[0].features]
+
+
+@pytest.mark.parametrize(
+    "name, content, match",
+    [
+        ("d.xlsx", "a,b\n1,2\n", r"'\.xlsx'.*\.csv, \.tsv or \.parquet"),
+        ("d.csv", b"", r"d\.csv: is empty"),
+        ("d.csv", "a,b\n", r"d\.csv: has a header but no data rows"),
+        ("d.csv", b"a,b\n1,caf\xe9\n", r"d\.csv: is not UTF-8.*re-save it with UTF-8"),
+        ("d.parquet", b"PAR1 this is not really parquet", r"d\.parquet: cannot be read as Parquet"),
+        ("d.csv", "a,b,a\n1,2,3\n", r"duplicate column names 'a'"),
+        ("d.csv", "a, ,b,\n1,2,3,4\n", r"column positions 2, 4 .*no name"),
+        ("d.csv", "a,b\n1,2\n3,4\n5,6,7\n", r"line 4 has 3 fields but the header has 2"),
+        ("d.csv", "a,b\n1,2,3\n4,5\n", r"line 2 has 3 fields but the header has 2"),
+        ("d.csv", "a;b;c\n1;2;3\n", r"semicolon-separated.*comma-separated"),
+        ("d.csv", "a\tb\n1\t2\n", r"tab-separated.*rename it to \.tsv"),
+        ("d.tsv", "a,b\n1,2\n", r"comma-separated.*rename it to \.csv"),
+    ],
+)
+def test_read_errors(tmp_path, name, content, match):
+    path = write(tmp_path, name, content)
+    msg = raises(match, read_table, path)
+    assert name in msg
+
+
+def test_truncated_parquet(tmp_path):
+    good = tmp_path / "good.parquet"
+    frame().to_parquet(good)
+    bad = write(tmp_path, "cut.parquet", good.read_bytes()[: good.stat().st_size // 2])
+    raises(r"cut\.parquet: cannot be read as Parquet.*truncated or corrupt", read_table, bad)
+
+
+def test_missing_file_and_directory(tmp_path):
+    raises(r"nope\.csv: file not found", read_table, tmp_path / "nope.csv")
+    folder = tmp_path / "dir.csv"
+    folder.mkdir()
+    raises(r"dir\.csv: is a directory", read_table, folder)
+
+
+def test_iter_table_chunks(tmp_path):
+    base = frame(25)
+    path = write(tmp_path, "d.csv", csv_text(base))
+    chunks = list(iter_table(path, chunksize=10))
+    assert [first for first, _ in chunks] == [0, 10, 20]
+    assert all(list(c.index) == list(range(len(c))) for _, c in chunks)
+    assert pd.concat([c for _, c in chunks], ignore_index=True)["x"].tolist() == base["x"].tolist()
+    pq = tmp_path / "d.parquet"
+    base.to_parquet(pq)
+    assert sum(len(c) for _, c in iter_table(pq, chunksize=7)) == 25
+
+
+def test_read_selected_columns(tmp_path):
+    base = frame(25)
+    csv_path = write(tmp_path, "d.csv", csv_text(base))
+    pq = tmp_path / "d.parquet"
+    base.to_parquet(pq)
+    for path in (csv_path, pq):
+        df = read_table(path, columns=["y", "x", "absent"])
+        assert list(df.columns) == ["x", "y"] and len(df) == 25  # file order, absent skipped
+        assert read_table(path, columns=["absent"]).shape == (25, 0)
+        assert [c.shape for _, c in iter_table(path, chunksize=20, columns=["color"])] == [(20, 1), (5, 1)]
+
+
+def test_unclosed_quote_is_an_input_error(tmp_path):
+    path = write(tmp_path, "q.csv", 'a,b\n1,"open\n2,3\n')
+    with pytest.raises(InputError, match=r"q\.csv: cannot be parsed.*check quoting"):
+        read_table(path)
