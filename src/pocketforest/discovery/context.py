@@ -13,7 +13,7 @@ import numpy as np
 import pandas as pd
 
 from ..design import model_frame
-from ..intake import Feature
+from ..features import Feature
 from ..forest import ForestFit
 from .effects import Predict, forest_predictor
 
