@@ -105,6 +105,8 @@ def _manifest(r, created: str, nodes) -> dict:
     }
     if classes is not None:
         m["classes"] = classes
+    if r.plan is not None:
+        m["plan"] = r.plan.to_dict()
     return _clean(m)
 
 

@@ -30,6 +30,7 @@ def summary_dict(r, path: str) -> dict:
             "oob": r.forest.oob, "evaluation": r.evaluation, "fidelity": r.fidelity, "loss": r.loss,
             "formula": r.equation.formula, "tree": {"depth": r.tree.depth, "leaves": r.tree.leaves},
             "importance": [i.to_dict() for i in r.importance], "warnings": r.warnings,
+            "plan": r.plan.to_dict() if r.plan is not None else None,
             "report": report, "open_report": open_command(report),
             "verify": f"pocketforest verify {shlex.quote(path)}"}
 
@@ -45,7 +46,10 @@ def format_summary(d: dict) -> str:
     width = max(10, *(len(n) + 2 for n in names))
     sp = d["splits"]
     lines = [f"pocketforest: {d['target']} ({d['task']}); rows {sp['discovery']} discovery / "
-             f"{sp['confirmation']} confirmation / {sp['test']} test", ""]
+             f"{sp['confirmation']} confirmation / {sp['test']} test"]
+    if d.get("plan"):
+        lines.append(f"plan: {d['plan']['reason']}")
+    lines.append("")
     fid, loss = {"forest": "(reference)"}, {"forest": ""}
     for m in MODELS[1:]:
         fid[m] = ", ".join(f"{k} {_f(v, '.3f')}" for k, v in d["fidelity"][m].items())
@@ -54,7 +58,9 @@ def format_summary(d: dict) -> str:
                    f"({_f(lo['ci_low'], '+.4f')} to {_f(lo['ci_high'], '+.4f')})")
     fid_w = max(len("fidelity"), *(len(v) for v in fid.values()))
     loss_w = max(len("loss (95% interval)"), *(len(v) for v in loss.values()))
-    head = (f"{'on ' + str(ev['n']) + ' test rows':<16}" + "".join(f"{n:>{width}}" for n in names)
+    on = (f"on {ev['n']} test rows" if ev.get("on") == "test"
+          else f"{ev.get('repeats')}x{ev.get('folds')}-fold CV")
+    head = (f"{on:<16}" + "".join(f"{n:>{width}}" for n in names)
             + f"    {'fidelity':<{fid_w}}    {'loss (95% interval)':<{loss_w}}")
     head = head.rstrip()
     lines += [head, "-" * len(head)]

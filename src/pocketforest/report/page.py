@@ -177,12 +177,26 @@ def _scoreboard(m: dict) -> str:
         extra = ("out-of-bag " + ", ".join(f"{k} {_num(v, 3)}" for k, v in (m["forest"].get("oob") or {}).items())
                  if mdl == "forest" else
                  "fidelity " + ", ".join(f"{k} {_num(v, 3)}" for k, v in m["fidelity"][mdl].items()))
-        cards.append(f"<div class='card {mdl}'><div class='small'>{mdl} · test {key}</div>"
+        where = "cross-validated" if ev.get("on") == "cross-validation" else "test"
+        cards.append(f"<div class='card {mdl}'><div class='small'>{mdl} · {where} {key}</div>"
                      f"<div class='big'>{_num(ev[mdl].get(key), 3)}</div><div class='small'>{_e(extra)}</div></div>")
     parts = ["<div class='cards'>" + "".join(cards) + "</div>"]
     n = ev.get("n", m["splits"].get("test"))
-    parts.append(f"<p>All figures on the {n} test rows, which no model saw while it was fitted.</p>")
+    cv = ev.get("on") == "cross-validation"
+    if cv:
+        parts.append(f"<p><b>Plan:</b> {_e((m.get('plan') or {}).get('reason', ''))}. Every figure comes from "
+                     f"{_e(ev.get('repeats'))} repeats of {_e(ev.get('folds'))}-fold cross-validation of the whole "
+                     "pipeline on all {n} rows: forest, discovery, equation and tree were refitted in every fold "
+                     "without that fold's rows (Harrell, Lee &amp; Mark 1996; Steyerberg 2019). The bundle holds the "
+                     "models fitted once on all rows; the refits only judge them. The apparent figures (those models "
+                     "on the rows they were fitted on) are shown below; the gap is their optimism.</p>".replace("{n}", str(n)))
+    else:
+        parts.append(f"<p>All figures on the {n} test rows, which no model saw while it was fitted.</p>")
     parts.append(_table(["model"] + names, [[mdl] + [ev[mdl].get(k) for k in names] for mdl in ("forest", "tree", "equation")]))
+    if cv and ev.get("apparent"):
+        parts.append("<p class='note'>Apparent (optimistic) figures:</p>"
+                     + _table(["model"] + names, [[mdl] + [ev["apparent"][mdl].get(k) for k in names]
+                                                  for mdl in ("forest", "tree", "equation")]))
     rows = []
     for mdl in ("tree", "equation"):
         lo = m["loss"][mdl]
@@ -284,9 +298,16 @@ def _equation(r, m: dict, files: set[str] | None = None) -> str:
     eq = m["equation"]
     parts = []
     link = {"identity": "identity link", "logit": "logit link", "log": "log link"}.get(eq["link"], eq["link"])
-    parts.append(f"<p>A {_e(eq['family'])} GLM with the {link}, estimated on the {_e(eq['fit_on'])} rows "
-                 f"(n = {_e(eq.get('n', '?'))}). Those rows played no part in choosing the terms, so its "
-                 "p-values and intervals keep their stated meaning (Cox 1975).</p>")
+    sc = eq.get("scoring") or {}
+    parts.append(f"<p>A {_e(eq['family'])} GLM with the {link}. Its terms were chosen on the discovery rows. "
+                 f"<b>For the paper</b>, the table of estimates, p-values and intervals below comes from the "
+                 f"{_e(eq['fit_on'])} rows alone (n = {_e(eq.get('n', '?'))}, {_e(eq.get('method', ''))}), which "
+                 "played no part in choosing the terms, so those p-values keep their stated meaning (Cox 1975).</p>")
+    if sc and not sc.get("same_as_inference"):
+        parts.append(f"<p><b>For scoring</b>, every export (ONNX, SQL, code, text) carries the same terms "
+                     f"re-estimated on the {_e(sc['fit_on'])} rows (n = {_e(sc['n'])}, {_e(sc['method'])}): more rows "
+                     "give better predictions, but those rows chose the terms, so these estimates carry no "
+                     "p-values. The equation printed here is the one for scoring.</p>")
     for cls, block in equation_blocks(r.equation, m["target"]):
         if cls is not None:
             parts.append(f"<h3>Class {_e(cls)} against {_e(r.equation.classes[0])}</h3>")
@@ -307,9 +328,14 @@ def _equation(r, m: dict, files: set[str] | None = None) -> str:
     coef = eq["coefficients"]
     has_class = bool(coef) and "class" in coef[0]
     head = (["class"] if has_class else []) + ["term", "estimate", "std. error", "95% low", "95% high", "p"]
-    parts.append("<h3>Coefficients</h3>" + _table(head, [([c["class"]] if has_class else []) +
+    parts.append("<h3>Coefficients for the paper (confirmation rows)</h3>" + _table(head, [([c["class"]] if has_class else []) +
                                                         [c["term"], c["estimate"], c["std_error"], c["ci_low"],
                                                          c["ci_high"], c["p_value"]] for c in coef]))
+    if sc and not sc.get("same_as_inference"):
+        sh = (["class"] if has_class else []) + ["term", "estimate"]
+        parts.append(f"<h3>Coefficients for scoring ({_e(sc['fit_on'])} rows)</h3>"
+                     + _table(sh, [([c["class"]] if has_class else []) + [c["term"], c["estimate"]]
+                                   for c in sc["coefficients"]]))
     bt = eq.get("block_test")
     parts.append("<h3>Do the suggested terms add anything?</h3>")
     if bt:
