@@ -44,7 +44,7 @@ def _distill_options(p: argparse.ArgumentParser) -> None:
                         "500 rows; below, no test split and figures from cross-validation of the whole pipeline)")
     p.add_argument("--categorical", nargs="+", default=[], metavar="COL", help="treat these columns as categories")
     p.add_argument("--ignore", nargs="+", default=[], metavar="COL", help="leave these columns out")
-    p.add_argument("--family", choices=["gaussian", "binomial", "multinomial", "poisson"],
+    p.add_argument("--family", choices=["gaussian", "binomial", "multinomial", "poisson", "negative_binomial"],
                    help="GLM family for the equation (default from the task)")
     p.add_argument("--robust", action="store_true", help="sandwich (robust) standard errors for the equation")
     p.add_argument("--synthetic-rows", type=int, default=0, metavar="N",

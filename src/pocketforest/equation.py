@@ -80,6 +80,14 @@ class EquationFit:
         """The notes as one paragraph (the manifest's ``equation.note``)."""
         return " ".join(self.notes)
 
+    @property
+    def source_line(self) -> str:
+        """Which rows estimated these coefficients, for every export's header."""
+        line = f"coefficients estimated on the {self.fit_on} rows (n = {self.n}, {self.method})"
+        if self.inference is not None:
+            line += f"; p-values and intervals for a paper: the {self.inference.fit_on}-row fit in the report"
+        return line
+
     def design(self, data: pd.DataFrame) -> np.ndarray:
         cols = [np.ones(len(data))] + [evaluate(c.node, data) for c in self.columns]
         return np.column_stack(cols)

@@ -71,7 +71,16 @@ class Distillation:
     warnings: list[str] = field(default_factory=list)
     plan: Plan | None = None
     #: Cross-validation only: the fold of every row in every repeat ([repeats, rows]).
-    folds: np.ndarray | None = None
+    fold_assignment: np.ndarray | None = None
+
+    @property
+    def folds(self) -> list[tuple[np.ndarray, np.ndarray]] | None:
+        """Cross-validation only: (fitted rows, held-out rows) of every fold of every repeat."""
+        a = self.fold_assignment
+        if a is None:
+            return None
+        return [(np.flatnonzero(a[r] != k), np.flatnonzero(a[r] == k))
+                for r in range(a.shape[0]) for k in np.unique(a[r])]
     #: Wall seconds per stage (split, forest, importance, discovery, equation, tree, judge); read by
     #: the benchmark so each stage's share of the run is measured, not guessed.
     timings: dict[str, float] = field(default_factory=dict)
@@ -223,15 +232,15 @@ def _judge_by_cross_validation(r: Distillation, plan: Plan) -> None:
     loss interval's bootstrap draws original rows with all their repeats."""
     table, task, classes = r.table, r.table.task, r.classes
     y = _outcome(table.data[table.target].to_numpy(), task)
-    r.folds = fold_assignments(y, task, plan, r.settings.seed)
+    r.fold_assignment = fold_assignments(y, task, plan, r.settings.seed)
     inner = dataclasses.replace(r.settings, split=plan.split)
-    oof = out_of_fold(table, inner, r.folds, lambda t, st: _fit_models(t, st, plan.split))
-    repeats, n = r.folds.shape
+    oof = out_of_fold(table, inner, r.fold_assignment, lambda t, st: _fit_models(t, st, plan.split))
+    repeats, n = r.fold_assignment.shape
     stacked = {m: p.reshape((repeats * n,) + p.shape[2:]) for m, p in oof.items()}
     y_s = np.tile(y, repeats)
     groups = np.tile(np.arange(n), repeats)
     apparent = {m: metrics(y, r.predict(table.data, m), task, classes) for m in ("forest", "tree", "equation")}
-    r.evaluation = {"on": "cross-validation", "folds": int(r.folds.max()) + 1, "repeats": int(repeats),
+    r.evaluation = {"on": "cross-validation", "folds": int(r.fold_assignment.max()) + 1, "repeats": int(repeats),
                     "n": int(n), "method": "repeated k-fold cross-validation of the whole pipeline "
                                            "(forest, discovery, equation and tree refitted in every fold)",
                     **{m: metrics(y_s, p, task, classes) for m, p in stacked.items()},

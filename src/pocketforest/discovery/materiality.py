@@ -14,7 +14,7 @@ it replaces saw at most 3,000 rows).
 
 The negative z values, which only useless columns produce, mirror the null distribution (Janitza,
 Celik & Boulesteix 2018, Advances in Data Analysis and Classification 12:885-915). Their root mean
-square estimates the null's scale (never below 1); a column is material when its z lies above that
+square, pooled with five pseudo-values at scale 1, estimates the null's scale (never below 1); a column is material when its z lies above that
 scale times the one-sided normal quantile at ``ALPHA`` / columns (Bonferroni, family-wise).
 
 Materiality only opens the door. Every material column then has to stay in the discovery-row GLM,
@@ -34,7 +34,8 @@ from ..importance import Importance, Increases
 from .context import Context
 
 ALPHA = 0.05          # family-wise share of useless columns let through (common practice)
-MIN_NULL_SCALE = 1.0  # z's standard deviation if the trees' increases were independent
+MIN_NULL_SCALE = 1.0  # z's standard deviation if the rows' increases were independent
+PRIOR_NEGATIVES = 5   # pseudo-values at that scale pooled with the mirrored negatives (common practice: shrinkage)
 
 
 @dataclass
@@ -69,11 +70,15 @@ class Materiality:
 
 
 def null_scale(z: np.ndarray) -> tuple[float, int]:
-    """Scale of the null distribution of z from the mirrored negative values, and how many there were."""
+    """Scale of the null distribution of z from the mirrored negative values, and how many there were.
+
+    A handful of negatives gives a very noisy scale, so they are pooled with
+    :data:`PRIOR_NEGATIVES` pseudo-values at scale 1 (what independent rows would give); the scale
+    never falls below 1.
+    """
     neg = z[z < 0]
-    if len(neg) == 0:
-        return MIN_NULL_SCALE, 0
-    return max(MIN_NULL_SCALE, float(np.sqrt(np.mean(neg ** 2)))), int(len(neg))
+    pooled = (PRIOR_NEGATIVES * MIN_NULL_SCALE ** 2 + float(np.sum(neg ** 2))) / (PRIOR_NEGATIVES + len(neg))
+    return max(MIN_NULL_SCALE, float(np.sqrt(pooled))), int(len(neg))
 
 
 def judge_materiality(ctx: Context, increases: Increases, names: list[str]) -> Materiality:
@@ -98,7 +103,7 @@ def judge_materiality(ctx: Context, increases: Increases, names: list[str]) -> M
     notes = _correlation_notes(ctx, material)
     summary = {"rule": (f"z = mean / standard error over rows of the out-of-bag importance on all {t} "
                         f"discovery rows with an out-of-bag prediction, above {threshold:.3g} = null scale {scale:.3g} (from {negatives} mirrored "
-                        f"negative z values, at least 1) x the normal quantile at {ALPHA:g}/{len(names)} "
+                        f"negative z values pooled with {PRIOR_NEGATIVES} at scale 1, at least 1) x the normal quantile at {ALPHA:g}/{len(names)} "
                         "(Janitza et al. 2018; Bonferroni over columns)"),
                "z_threshold": threshold, "null_scale": scale, "negative_z": negatives, "alpha": ALPHA,
                "rows": int(t), "trees": int(len(increases.per_tree)),

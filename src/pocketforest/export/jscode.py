@@ -115,7 +115,7 @@ def _bind(inputs: Inputs) -> list[str]:
 def equation_js(eq, meta: dict) -> str:
     inputs = Inputs()
     etas = linear_predictors(eq, JS, inputs)
-    lines = _header("equation", meta) + ["function predict(row) {"] + _bind(inputs)
+    lines = _header("equation", meta) + ["// " + eq.source_line, "function predict(row) {"] + _bind(inputs)
     if eq.task == "regression":
         lines.append(f"  var eta = {etas[0]};")
         lines.append("  return eta;" if eq.link == "identity" else "  return Math.exp(eta);")

@@ -66,7 +66,10 @@ def equation_tex(eq, meta: dict) -> str:
            r"\begin{document}",
            rf"\section*{{Equation for {tex_text(eq.target)}}}",
            rf"{eq.family.capitalize()} family, {eq.link} link, fitted on the {tex_escape(eq.fit_on)} rows "
-           rf"($n = {eq.n}$). Exact coefficients are in \texttt{{equation.txt}}; "
+           rf"($n = {eq.n}$, {tex_escape(eq.method)})"
+           + (rf"; the p-values and intervals for a paper come from the {tex_escape(eq.inference.fit_on)} rows "
+              r"alone (see the report)" if eq.inference is not None else "")
+           + r". Exact coefficients are in \texttt{equation.txt}; "
            r"$[v = \text{level}]$ is 1 when the column equals that level and 0 otherwise.", ""]
     for cls, b in blocks:
         head = r"\eta" if cls is None else rf"\eta_{{{tex_text(cls)}}}"

@@ -123,7 +123,7 @@ def _bind(inputs: Inputs) -> list[str]:
 def equation_py(eq, meta: dict) -> str:
     inputs = Inputs()
     etas = linear_predictors(eq, PY, inputs)
-    lines = _header("equation", meta) + ["", "def predict(row):"] + _bind(inputs)
+    lines = _header("equation", meta) + ["# " + eq.source_line, "", "def predict(row):"] + _bind(inputs)
     if eq.task == "regression":
         lines.append(f"    eta = {etas[0]}")
         lines.append("    return eta" if eq.link == "identity" else "    return _exp(eta)")

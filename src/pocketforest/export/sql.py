@@ -71,6 +71,10 @@ def _argmax_case(scores: list[str], labels: list[str]) -> str:
 
 
 def equation_sql(eq, meta: dict) -> str:
+    return "-- " + eq.source_line + "\n" + _equation_sql(eq, meta)
+
+
+def _equation_sql(eq, meta: dict) -> str:
     inputs = Inputs(prefix="i.")
     etas = linear_predictors(eq, SQL, inputs)
     inner = _read_inputs(inputs)

@@ -9,7 +9,7 @@ from .tree_spec import TreeNode
 
 def equation_text(eq: EquationFit, fills: dict, kinds: dict) -> str:
     lines = [f"# Equation for {eq.target} ({eq.family} family, {eq.link} link)",
-             f"# fitted on the {eq.fit_on} rows (n = {eq.n}); formula:",
+             f"# {eq.source_line}; formula:",
              f"#   {eq.formula}", "#",
              "# Missing inputs: numbers take the value below, categories count as the level '(missing)'."]
     for name, kind in kinds.items():
