@@ -107,6 +107,10 @@ def test_a_zero_reaching_a_log_term_is_handled_in_every_form(tmp_path):
     np.testing.assert_allclose(bundle.predict(rows, model="equation"), want, rtol=1e-5)   # float32 graph
     m = json.loads((tmp_path / "logs" / "manifest.json").read_text())
     feats = m["features"]
+    # below the log's floor an input counts as outside the training envelope, as beyond its range
+    from pocketforest.scoring.runtime import envelope_count
+    assert next(f for f in feats if f["name"] == "x")["term_domain_min"] == logs[0].params["floor"]
+    assert list(envelope_count(rows, feats)) == [1, 1, 0, 0]
     json_rows = runners.json_rows(rows, feats)
     py = runners.run_python_export(tmp_path / "logs" / "equation.py", json_rows)
     np.testing.assert_allclose(py, want, rtol=1e-12)       # double precision, same operations

@@ -84,7 +84,8 @@ def _manifest(r, created: str, nodes) -> dict:
         "source": {"file": os.path.basename(t.source), "rows_used": int(len(t.data)),
                    "rows_dropped_missing_target": int(t.rows_dropped_missing_target),
                    "dropped_columns": dict(t.dropped_columns)},
-        "features": [{**f.to_dict(), "fill": r.fills[f.name], **_training_profile(f, t.data.iloc[r.splits.discovery])}
+        "features": [{**f.to_dict(), "fill": r.fills[f.name], **_training_profile(f, t.data.iloc[r.splits.discovery]),
+                      **_term_domain(f.name, r.equation.terms)}
                      for f in t.features],
         "splits": r.splits.sizes(),
         "forest": {"trees": r.settings.trees, **{k: v for k, v in r.forest.settings.items() if k != "trees"},
@@ -122,6 +123,13 @@ def _equation_section(eq) -> dict:
                                         **({"class": c["class"]} if "class" in c else {})} for c in eq.table],
                       "same_as_inference": eq.inference is None}
     return out
+
+
+def _term_domain(name: str, terms) -> dict:
+    """The smallest value a domain-limited term takes as it is (a log's floor): below it `score`
+    counts the input as outside the training envelope, like a value beyond the observed range."""
+    floors = [float(t.params["floor"]) for t in terms if t.kind == "log" and t.variables == [name]]
+    return {"term_domain_min": max(floors)} if floors else {}
 
 
 def _training_profile(f, rows) -> dict:

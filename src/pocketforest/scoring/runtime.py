@@ -137,8 +137,10 @@ def envelope_count(frame: pd.DataFrame, features: list[dict]) -> np.ndarray:
         col = frame[f["name"]]
         if f["kind"] == "numeric":
             x = pd.to_numeric(col, errors="coerce").to_numpy(dtype=np.float64)
+            # below a log term's floor the term no longer follows the input: outside too
+            lo = f["min"] if f.get("term_domain_min") is None else max(f["min"], f["term_domain_min"])
             with np.errstate(invalid="ignore"):
-                count += ((x < f["min"]) | (x > f["max"])).astype(np.int64)
+                count += ((x < lo) | (x > f["max"])).astype(np.int64)
         else:
             known = set(f.get("categories") or []) | {""}
             count += (~col.fillna("").astype(str).isin(known)).to_numpy().astype(np.int64)
