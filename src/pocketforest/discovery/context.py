@@ -20,6 +20,13 @@ from .effects import Predict, forest_predictor
 #: |Spearman| at which two numbers share their importance out and partial dependence
 #: extrapolates (Strobl et al. 2008, BMC Bioinformatics 9:307; the cut itself is common practice).
 CORRELATED = 0.7
+#: From this many discovery rows the GLM on those rows checks every main effect (a main effect that
+#: adds nothing leaves), so the importance test may let more through: see :mod:`.materiality` and
+#: :mod:`.select`. Fewer rows cannot tell a chance pass from a weaker real effect at BIC's penalty:
+#: on the wine data (178 rows, 89 for discovery) letting BIC remove main effects cost the equation
+#: 0.05 of cross-validated accuracy (0.896 against 0.944 with every material variable kept and the
+#: fit penalised), so small tables keep what the forest vouched for and rely on shrinkage.
+GLM_CHECK_ROWS = 500
 
 
 @dataclass(frozen=True)
@@ -109,6 +116,10 @@ class Context:
     def rng(self, offset: int) -> np.random.Generator:
         """A generator per step, so adding a step never changes another step's draws."""
         return np.random.default_rng(self.requests.seed + offset)
+
+    @property
+    def glm_checks_main_effects(self) -> bool:
+        return len(self.frame) >= GLM_CHECK_ROWS
 
     def say(self, text: str, end: str = "\n") -> None:
         if not self.requests.quiet:

@@ -91,7 +91,9 @@ def judge_materiality(ctx: Context, increases: Increases, names: list[str]) -> M
     se = rows.std(axis=0, ddof=1) / np.sqrt(t) if t > 1 else np.full(len(names), np.inf)
     z = np.divide(mean, se, out=np.zeros_like(mean), where=se > 0)
     scale, negatives = null_scale(z)
-    threshold = scale * float(stats.norm.ppf(1.0 - ALPHA / max(1, len(names))))
+    # Bonferroni over the columns unless the discovery-row GLM will check every main effect too
+    per_column = ALPHA if ctx.glm_checks_main_effects else ALPHA / max(1, len(names))
+    threshold = scale * float(stats.norm.ppf(1.0 - per_column))
     evidence, material = {}, []
     for j, name in enumerate(names):
         ev = Evidence(float(mean[j]), float(se[j]), float(z[j]), bool(z[j] > threshold),
@@ -103,8 +105,9 @@ def judge_materiality(ctx: Context, increases: Increases, names: list[str]) -> M
     notes = _correlation_notes(ctx, material)
     summary = {"rule": (f"z = mean / standard error over rows of the out-of-bag importance on all {t} "
                         f"discovery rows with an out-of-bag prediction, above {threshold:.3g} = null scale {scale:.3g} (from {negatives} mirrored "
-                        f"negative z values pooled with {PRIOR_NEGATIVES} at scale 1, at least 1) x the normal quantile at {ALPHA:g}/{len(names)} "
-                        "(Janitza et al. 2018; Bonferroni over columns)"),
+                        f"negative z values pooled with {PRIOR_NEGATIVES} at scale 1, at least 1) x the normal quantile at {per_column:.3g} "
+                        "(Janitza et al. 2018; " + ("per column: the discovery-row GLM then checks every main effect)"
+                                                    if ctx.glm_checks_main_effects else "Bonferroni over columns)")),
                "z_threshold": threshold, "null_scale": scale, "negative_z": negatives, "alpha": ALPHA,
                "rows": int(t), "trees": int(len(increases.per_tree)),
                "correlated_clusters": [{"variables": c, "max_abs_spearman": _max_rho(ctx, c)}

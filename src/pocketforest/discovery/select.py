@@ -1,7 +1,8 @@
 """From candidate terms to the suggested equation: selection on the discovery rows.
 
 The selection starts where a statistician's hand-built model starts — a main effect for every
-material variable — and then lets the forest add to it: bends, products of numbers, a number's
+material variable — and then lets the forest add to it (and the GLM add main effects the forest's
+importance test missed): bends, products of numbers, a number's
 slope that differs by category level (per level where it lives in some levels only), and
 category × category cells. A candidate enters only if it lowers the extended Bayesian information
 criterion of the GLM on the discovery rows: BIC (Schwarz 1978) plus 2·log(candidates of its kind)
@@ -33,13 +34,6 @@ SELECT_ROWS = {"regression": 20000, "classification": 4000}
 #: Two hinges cost one more coefficient than one bend and are easily fitted to noise: offered only
 #: when the estimation rows reach this many (common practice: tens of rows per coefficient).
 TWO_HINGE_ROWS = 400
-#: From this many discovery rows a material main effect may leave the equation when the GLM on
-#: those rows says it adds nothing (BIC) — a stand-in for a correlated variable, or a chance
-#: pass of the importance test. Fewer rows cannot tell such a term from a weaker real effect at
-#: BIC's penalty: on the wine data (178 rows, 89 for discovery) removing them cost the equation
-#: 0.05 of cross-validated accuracy (0.896 against 0.944 with every material variable kept and the
-#: fit penalised), so small tables keep what the forest vouched for and rely on shrinkage.
-MAIN_EFFECT_REMOVAL_ROWS = 500
 #: Per-cell category × category candidates only when the pair has at most this many cells.
 MAX_CELLS = 12
 
@@ -48,7 +42,7 @@ MAX_CELLS = 12
 class Candidate:
     key: str
     terms: list[Term]
-    pool: str                                            # "bend" or "pair": its extended-BIC family
+    pool: str                                            # "main", "bend" or "pair": its extended-BIC family
     conflicts: frozenset[str] = field(default_factory=frozenset)   # at most one chosen per key
 
 
@@ -180,8 +174,23 @@ def select_terms(ctx: Context, material: list[str], requested: set[str], shapes:
         order = order[:ctx.requests.max_terms]
     base = [Term("linear" if kinds[v] == "numeric" else "categorical", [v], evidence={"reason": "main effect"})
             for v in order]
-    candidates = _bend_candidates(ctx, order, shapes) + _pair_candidates(ctx, order, pairs)
+    others = [f.name for f in ctx.features if f.name not in material and f.name not in ctx.requests.drop]
+    if ctx.requests.max_terms is not None:
+        others = []
+    candidates = (_main_candidates(ctx, others) + _bend_candidates(ctx, order, shapes)
+                  + _pair_candidates(ctx, order, pairs))
     return _forward_backward(ctx, base, candidates, data, y, requested, len(rows))
+
+
+def _main_candidates(ctx: Context, variables: list[str]) -> list[Candidate]:
+    """Main effects of the variables the forest did not single out: a slope or level effect too
+    small for permutation importance can still be plain to a GLM on all discovery rows (a 1%
+    linear effect on 2,500 rows gives a likelihood-ratio statistic near 30)."""
+    kinds = ctx.kinds
+    return [Candidate(f"main effect:{v}", [Term("linear" if kinds[v] == "numeric" else "categorical", [v],
+                                                evidence={"reason": "main effect (not material; the discovery-row GLM "
+                                                                    "found it)"})], "main")
+            for v in variables]
 
 
 def _bend_candidates(ctx: Context, order: list[str], shapes: dict) -> list[Candidate]:
@@ -272,7 +281,7 @@ def _forward_backward(ctx: Context, base: list[Term], candidates: list[Candidate
                       y: np.ndarray, requested: set[str], n_rows: int) -> Selection:
     kinds, fills = ctx.kinds, ctx.fills
     crit = Criterion(y, ctx.task, ctx.classes)
-    pools = {p: sum(c.pool == p for c in candidates) for p in ("bend", "pair")}
+    pools = {p: sum(c.pool == p for c in candidates) for p in ("main", "bend", "pair")}
     extra = {p: 2.0 * np.log(max(1, k)) for p, k in pools.items()}     # extended BIC, γ = 1
     base_cols = [_columns([t], data, fills, kinds) for t in base]
     cols = {c.key: _columns(c.terms, data, fills, kinds) for c in candidates}
@@ -353,8 +362,8 @@ def _forward_backward(ctx: Context, base: list[Term], candidates: list[Candidate
 
 
 def _removable(ctx: Context) -> bool:
-    """May material main effects leave? Only with enough discovery rows (see above)."""
-    return len(ctx.frame) >= MAIN_EFFECT_REMOVAL_ROWS
+    """May material main effects leave? Only with enough discovery rows (context.GLM_CHECK_ROWS)."""
+    return ctx.glm_checks_main_effects
 
 
 def removal_reason(ctx: Context, var: str, kept: list[str]) -> str:
