@@ -91,3 +91,41 @@ def test_unseen_levels_score_as_the_most_common_fitting_level():
     frame, _ = anchor.hand_frame(new, {"g": "categorical", "x": "numeric"}, fit)
     assert frame["v0"].tolist() == ["a", "a"]          # "" was not seen on the fitting rows either
     assert frame["v1"].tolist() == [1.5, 5.0]          # median of the fitting rows
+
+
+def _relabelled(monkeypatch, folds: bool):
+    """The real distill, with its result relabelled as judged by cross-validation on its first call
+    (the plan issue 12 adds), so the anchor's two fallbacks run on today's pipeline."""
+    import pocketforest.pipeline as pipeline
+    real, calls = pipeline.distill, []
+
+    def fake(table, settings=None):
+        result = real(table, settings)
+        calls.append(settings)
+        if len(calls) == 1:
+            result.evaluation = dict(result.evaluation, on="cross-validation")
+            if folds:
+                from sklearn.model_selection import KFold
+                result.evaluation["folds"] = [t for _, t in KFold(3, shuffle=True, random_state=0)
+                                              .split(np.arange(len(result.table.data)))]
+        return result
+
+    monkeypatch.setattr(pipeline, "distill", fake)
+    return calls
+
+
+def test_cross_validation_without_folds_forces_the_three_way_split(monkeypatch):
+    calls = _relabelled(monkeypatch, folds=False)
+    row = anchor.anchor_one(anchor.DATASETS["iris"], seed=0, trees=10)
+    assert len(calls) == 2 and tuple(calls[1].split) == anchor.FORCED_SPLIT
+    assert row["plan"] == "forced three-way split" and any("forced" in n for n in row["notes"])
+    assert row["n_fit"] + row["n_test"] == row["n"]
+
+
+def test_cross_validation_with_folds_refits_the_hand_glms_on_each_fold(monkeypatch):
+    _relabelled(monkeypatch, folds=True)
+    row = anchor.anchor_one(anchor.DATASETS["iris"], seed=0, trees=10)
+    assert row["plan"].startswith("cross-validation") and "3 folds" in row["plan"]
+    assert row["n_test"] == 50 and row["n_fit"] == 100             # 150 rows, three equal folds
+    assert 0.5 < row["main_accuracy"] <= 1.0 and np.isfinite(row["splines_accuracy"])
+    assert row["equation_accuracy"] is not None                    # read from result.evaluation

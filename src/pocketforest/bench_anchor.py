@@ -228,42 +228,69 @@ def hand_formula(kinds: dict[str, str], names: dict[str, str], frame: pd.DataFra
 
 
 def fit_hand(kind: str, frame: pd.DataFrame, y: np.ndarray, family: str, kinds: dict, names: dict) -> HandFit:
-    """Fit one pre-specified GLM by maximum likelihood (statsmodels); a failed fit is reported,
-    not hidden."""
+    """Fit one pre-specified GLM by maximum likelihood (statsmodels) on its patsy design.
+
+    A logit fit whose estimates run off to infinity (statsmodels warns of separation or fails to
+    converge, or the fitted values are not finite) is refitted by Firth's penalised likelihood,
+    the remedy the equation itself uses (:mod:`pocketforest.separation`), so the hand fit is not
+    handicapped by a problem the tool solves. A fit that fails even so is reported, not hidden.
+    """
     import statsmodels.api as sm
-    import statsmodels.formula.api as smf
-    from patsy import dmatrix
+    from patsy import build_design_matrices, dmatrix
 
     form = hand_formula(kinds, names, frame, splines=(kind == "splines"))
-    design = np.asarray(dmatrix(form.split("~", 1)[1], frame))
-    width, rank = design.shape[1], int(np.linalg.matrix_rank(design))
-    data = frame.assign(__y__=y)
-    note = ""
+    dm = dmatrix(form.split("~", 1)[1], frame)
+    info, X = dm.design_info, np.asarray(dm, dtype=float)
+    width, rank = X.shape[1], int(np.linalg.matrix_rank(X))
+
+    def design(d: pd.DataFrame) -> np.ndarray:
+        return np.asarray(build_design_matrices([info], d)[0], dtype=float)
+
+    logit = family in ("binomial", "multinomial")
+    notes: list[str] = []
+    res = None
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         try:
             if family == "multinomial":
-                model = smf.mnlogit(form, data)
-                try:
-                    res = model.fit(disp=0, maxiter=200)
-                except np.linalg.LinAlgError:
-                    res = model.fit(method="bfgs", disp=0, maxiter=2000)
-                    note = "Newton failed (singular Hessian); fitted by BFGS"
-                predict = (lambda d, r=res: np.asarray(r.predict(d), dtype=float))
+                res = sm.MNLogit(y, X).fit(disp=0, maxiter=200)
             else:
-                fam = _sm_family(family)
-                res = smf.glm(form, data, family=fam).fit()
-                if family == "binomial":
-                    predict = (lambda d, r=res: _two_columns(np.asarray(r.predict(d), dtype=float)))
-                else:
-                    predict = (lambda d, r=res: np.asarray(r.predict(d), dtype=float))
+                res = sm.GLM(y, X, family=_sm_family(family)).fit()
+        except np.linalg.LinAlgError as exc:
+            if not logit:
+                return HandFit(kind, form, width, rank, None, f"fit failed: {exc}")
         except Exception as exc:   # a pre-specified fit can fail on small data; say so in the table
             return HandFit(kind, form, width, rank, None, f"fit failed: {type(exc).__name__}: {exc}"[:160])
-    flagged = sorted({w.category.__name__ for w in caught if "Separation" in w.category.__name__
-                      or "Convergence" in w.category.__name__})
-    if flagged:
-        note = "; ".join(filter(None, [note, "statsmodels warned: " + ", ".join(flagged)]))
-    return HandFit(kind, form, width, rank, predict, note)
+    flagged = sorted({w.category.__name__ for w in caught
+                      if "Separation" in w.category.__name__ or "Convergence" in w.category.__name__})
+    params = None if res is None else np.asarray(res.params, dtype=float)
+    runaway = res is None or bool(flagged) or not np.all(np.isfinite(params))
+    if logit and runaway:
+        from pocketforest.separation import firth_fit
+        k = int(np.max(y)) + 1 if family == "multinomial" else 2
+        try:
+            params = np.asarray(firth_fit(X, y.astype(int), k).params, dtype=float)
+        except (np.linalg.LinAlgError, ValueError) as exc:
+            return HandFit(kind, form, width, rank, None, f"Firth fit failed: {exc}"[:160])
+        notes.append("maximum likelihood ran away (" + (", ".join(flagged) or "no finite estimates")
+                     + "): refitted by Firth's penalised likelihood")
+    elif flagged:
+        notes.append("statsmodels warned: " + ", ".join(flagged))
+    if not np.all(np.isfinite(params)):
+        return HandFit(kind, form, width, rank, None, "fit failed: non-finite estimates")
+
+    def predict(d: pd.DataFrame) -> np.ndarray:
+        eta = design(d) @ params
+        if family == "multinomial":
+            full = np.column_stack([np.zeros(len(eta)), eta])
+            full -= full.max(axis=1, keepdims=True)
+            e = np.exp(full)
+            return e / e.sum(axis=1, keepdims=True)
+        if family == "binomial":
+            return _two_columns(1.0 / (1.0 + np.exp(-eta)))
+        return np.asarray(_sm_family(family).link.inverse(eta), dtype=float)
+
+    return HandFit(kind, form, width, rank, predict, "; ".join(notes))
 
 
 def _sm_family(family: str):
@@ -422,9 +449,17 @@ def anchor_one(ds: Dataset, seed: int, trees: int) -> dict:
         per = [_score_fold(result, data, f, ds.target, task, classes, kinds, family, None, models=("hand",))
                for f in folds]
         row.update(n_fit=int(np.mean([len(f[0]) for f in folds])), n_test=int(np.mean([len(f[1]) for f in folds])))
-        for key in per[0]:
-            vals = [p[key] for p in per if isinstance(p.get(key), (int, float))]
-            row[key] = float(np.mean(vals)) if vals and all(isinstance(p.get(key), (int, float)) for p in per) else per[0][key]
+        for key in dict.fromkeys(k for p in per for k in p):
+            vals = [p.get(key) for p in per]
+            if key.endswith(("_width", "_rank")):
+                row[key] = vals[0]
+            elif key == "hand_notes":
+                row[key] = sorted({n for v in vals if v for n in v})
+            elif all(isinstance(v, (int, float)) for v in vals):
+                row[key] = float(np.mean(vals))
+            else:
+                row.setdefault("hand_notes", []).append(
+                    f"{key}: no figure in {sum(v is None for v in vals)} of {len(per)} folds")
         ev = result.evaluation
         for model in ("forest", "equation"):
             for m in (("r2",) if task == "regression" else ("accuracy", "log_loss")):
@@ -458,8 +493,12 @@ def _score_fold(result, data, fold, target, task, classes, kinds, family, eq, mo
             out[f"{key}_width"], out[f"{key}_rank"] = h.width, h.rank
             if h.note:
                 out.setdefault("hand_notes", []).append(f"{kind}: {h.note}")
-            if h.predict is not None:
-                out.update({f"{key}_{k}": v for k, v in _score(y_test, h.predict(frame_test), task, classes).items()})
+            pred = h.predict(frame_test) if h.predict is not None else None
+            if pred is not None and not np.all(np.isfinite(pred)):
+                out.setdefault("hand_notes", []).append(f"{kind}: non-finite predictions on the held-out rows")
+                pred = None
+            if pred is not None:
+                out.update({f"{key}_{k}": v for k, v in _score(y_test, pred, task, classes).items()})
     return out
 
 
