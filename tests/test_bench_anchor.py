@@ -5,12 +5,26 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from pocketforest import bench_anchor as anchor
+from pocketforest.bench import anchor, cli
 
 
 @pytest.fixture(scope="module")
-def quick_rows() -> list[dict]:
-    return anchor.run_anchor(quick=True)
+def quick_section(tmp_path_factory):
+    """The section exactly as `python -m pocketforest.bench --only anchor --quick` runs it."""
+    return anchor.run(True, tmp_path_factory.mktemp("anchor"), lambda text: None)
+
+
+@pytest.fixture(scope="module")
+def quick_rows(quick_section) -> list[dict]:
+    return quick_section.raw["anchor"]
+
+
+def test_section_has_one_judged_figure_per_table(quick_section, quick_rows):
+    figs = quick_section.figures
+    assert len(figs) == len(anchor.QUICK_DATASETS)
+    for f, r in zip(figs, quick_rows):
+        assert r["dataset"] in f.name and f.value == pytest.approx(r["gap"]) and f.passed == r["passed"]
+    assert any("hand spline" in line for line in quick_section.lines)
 
 
 def test_quick_run_covers_its_tables_with_every_figure(quick_rows):
@@ -129,3 +143,11 @@ def test_cross_validation_with_folds_refits_the_hand_glms_on_each_fold(monkeypat
     assert row["n_test"] == 50 and row["n_fit"] == 100             # 150 rows, three equal folds
     assert 0.5 < row["main_accuracy"] <= 1.0 and np.isfinite(row["splines_accuracy"])
     assert row["equation_accuracy"] is not None                    # read from result.evaluation
+
+
+@pytest.mark.parametrize("argv", [["--only", "nope"], ["--only", "anchor", "--anchor-datasets", "iris,nope"],
+                                  ["--only", "anchor", "--anchor-seeds", "one"]])
+def test_bad_section_options_are_one_error_line(argv, capsys):
+    assert cli.main(argv) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and err[0].startswith("error: ")

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from pocketforest import bench_power as power
+from pocketforest.bench import power
 
 N = 200_000   # generator only (numpy, well under a second)
 
@@ -58,8 +58,12 @@ def test_recovery_rules():
     assert power.noise_in(terms) == ["noise_a"]
 
 
-def test_quick_run_is_well_formed():
-    rows = power.run_power(quick=True)
+def test_quick_run_is_well_formed(tmp_path):
+    section = power.run(True, tmp_path, lambda text: None)   # as `bench --only power --quick` runs it
+    rows = section.raw["power"]
+    names = [f.name for f in section.figures]
+    assert names == ["power: recovered, regression 1,000 rows", "power: noise runs, regression 1,000 rows"]
+    assert section.figures[0].passed is None                   # recovery is judged from 20,000 rows on
     assert [(r["task"], r["n"]) for r in rows] == [("regression", 1_000)]
     r = rows[0]
     assert set(r["recovered"]) == set(power.SHARES)
@@ -68,3 +72,14 @@ def test_quick_run_is_well_formed():
     assert r["terms"], "the equation has at least one term"
     text = power.render_power(rows)
     assert "1,000" in text and "noise" in text
+
+
+def test_sizes_tasks_and_seeds_come_from_the_command_line():
+    import argparse
+    parser = argparse.ArgumentParser()
+    power.add_arguments(parser)
+    args = parser.parse_args(["--power-sizes", "1000,5_000", "--power-tasks", "classification", "--power-seeds", "3"])
+    assert power.options(args) == {"sizes": (1000, 5000), "seeds": (3,), "tasks": ("classification",), "trees": None}
+    from pocketforest.errors import InputError
+    with pytest.raises(InputError, match="--power-tasks"):
+        power.options(parser.parse_args(["--power-tasks", "survival"]))

@@ -35,18 +35,23 @@ alone whose kind is not linear; number × number: a term involving both ``x_a`` 
 
 Goals (issue 11): the recovered share grows with the rows and is at least 95 % at 20,000 rows; a
 noise column enters the equation in at most 5 % of the runs at every size.
+
+Run: ``python -m pocketforest.bench --only power`` (4 sizes x 5 seeds x 2 tasks),
+``--quick`` (1,000 rows, 1 seed, regression), ``--power-sizes 1000,5000``, ``--power-seeds 0,1,2``,
+``--power-tasks regression``, ``--power-trees N``; ``--power`` adds it to the default sections.
 """
 from __future__ import annotations
 
 import argparse
-import json
-import dataclasses
-import sys
 import time
 from dataclasses import dataclass
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
+
+from ..errors import InputError
+from .common import Figure, Section, int_list, judge, name_list, settings
 
 SHARES = {"linear": 0.01, "category": 0.02, "bend": 0.05, "num_num": 0.03, "num_level": 0.03, "cat_cat": 0.02}
 PART_LABELS = {"linear": "linear 1%", "category": "category 2%", "bend": "bend 5%", "num_num": "num×num 3%",
@@ -148,20 +153,14 @@ def noise_in(terms: list[tuple[str, tuple[str, ...]]]) -> list[str]:
     return sorted({v for _, vs in terms for v in vs if v in NOISE_COLUMNS})
 
 
-def _settings(**kw):
-    from pocketforest.pipeline import Settings
-    known = {f.name for f in dataclasses.fields(Settings)}
-    return Settings(**{k: v for k, v in kw.items() if k in known})
-
-
 def power_one(n: int, seed: int, task: str, trees: int) -> dict:
-    from pocketforest.intake import prepare
-    from pocketforest.pipeline import distill
+    from ..intake import prepare
+    from .. import pipeline
 
     p = planted(n, seed, task)
     table = prepare(p.data, "y", task=task, source=f"planted-{task}-{n}-{seed}")
     t0 = time.perf_counter()
-    result = distill(table, _settings(trees=trees, seed=seed, quiet=True, bootstrap=BOOTSTRAP))
+    result = pipeline.distill(table, settings(trees=trees, seed=seed, quiet=True, bootstrap=BOOTSTRAP))
     seconds = time.perf_counter() - t0
     terms = _terms(result)
     rec = recovered(terms)
@@ -239,38 +238,49 @@ def render_power(rows: list[dict]) -> str:
     return "\n".join(lines)
 
 
-def _ints(text: str) -> tuple[int, ...]:
-    return tuple(int(x.replace("_", "").replace(",", "")) for x in text.split(",") if x.strip())
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    g = parser.add_argument_group("power section (--power)")
+    g.add_argument("--power-sizes", help="comma-separated row counts (default 1000,5000,20000,100000; --quick: 1000)")
+    g.add_argument("--power-seeds", help="comma-separated seeds (default 0,1,2,3,4; --quick: 0)")
+    g.add_argument("--power-tasks", help="regression and/or classification, comma-separated "
+                                         "(default both; --quick: regression)")
+    g.add_argument("--power-trees", type=int, help=f"forest trees (default {FULL_TREES}; --quick: {QUICK_TREES})")
 
 
-def main(argv: list[str] | None = None) -> int:
-    p = argparse.ArgumentParser(prog="python -m pocketforest.bench_power", description=__doc__.splitlines()[0])
-    p.add_argument("--quick", action="store_true", help="1,000 rows, one seed, regression, few trees")
-    p.add_argument("--sizes", help="comma-separated row counts (default 1000,5000,20000,100000)")
-    p.add_argument("--seeds", help="comma-separated seeds (default 0,1,2,3,4)")
-    p.add_argument("--tasks", help="regression, classification or both (comma-separated)")
-    p.add_argument("--trees", type=int, help=f"forest trees (default {FULL_TREES}; quick: {QUICK_TREES})")
-    p.add_argument("--json", help="also write every run's row to this JSON file")
-    a = p.parse_args(argv)
-    try:
-        sizes = _ints(a.sizes) if a.sizes else None
-        seeds = _ints(a.seeds) if a.seeds else None
-    except ValueError:
-        print("error: --sizes and --seeds take comma-separated whole numbers, e.g. --sizes 1000,5000", file=sys.stderr)
-        return 2
-    tasks = tuple(t.strip() for t in a.tasks.split(",")) if a.tasks else None
-    if tasks and any(t not in TASKS for t in tasks):
-        print(f"error: --tasks takes {' and/or '.join(TASKS)}", file=sys.stderr)
-        return 2
+def options(args: argparse.Namespace) -> dict:
+    sizes = int_list(args.power_sizes, "--power-sizes")
+    if sizes and min(sizes) < 100:
+        raise InputError(f"--power-sizes {args.power_sizes!r}: every size needs at least 100 rows")
+    return {"sizes": sizes, "seeds": int_list(args.power_seeds, "--power-seeds"),
+            "tasks": name_list(args.power_tasks, TASKS, "--power-tasks"), "trees": args.power_trees}
+
+
+def power_figures(rows: list[dict]) -> list[Figure]:
+    """Judged figures: recovery at 20,000 rows and above, growth with the rows, noise at every size."""
+    out = []
+    summ = summarise_power(rows)
+    for task in dict.fromkeys(s["task"] for s in summ):
+        ss = [s for s in summ if s["task"] == task]
+        for s in ss:
+            judged = s["n"] >= 20_000            # the goal is set from 20,000 rows on
+            out.append(Figure(f"power: recovered, {task} {s['n']:,} rows", s["recovery"],
+                              ">= 0.95" if judged else "shown", judge(s["recovery"], ">=", 0.95) if judged else None,
+                              detail=s, note=", ".join(f"{PART_LABELS[k]} {v:.0%}" for k, v in s["parts"].items())))
+            out.append(Figure(f"power: noise runs, {task} {s['n']:,} rows", s["noise_runs"],
+                              "<= 0.05", judge(s["noise_runs"], "<=", 0.05),
+                              note=", ".join(s["noise_columns"])))
+        if len(ss) > 1:
+            step = min(b["recovery"] - a["recovery"] for a, b in zip(ss, ss[1:]))
+            out.append(Figure(f"power: smallest rise between sizes, {task}", step, ">= 0",
+                              judge(step, ">=", 0.0), note=" -> ".join(f"{s['recovery']:.0%}" for s in ss)))
+    return out
+
+
+def run(quick: bool, root: Path, say, sizes: tuple[int, ...] | None = None, seeds: tuple[int, ...] | None = None,
+        tasks: tuple[str, ...] | None = None, trees: int | None = None) -> Section:
+    """The power section for ``python -m pocketforest.bench --power`` (no files under ``root``)."""
     t0 = time.perf_counter()
-    rows = run_power(a.quick, sizes, seeds, tasks, a.trees, say=lambda t: print(t, file=sys.stderr, flush=True))
-    print(render_power(rows))
-    print(f"\nwall time {time.perf_counter() - t0:.0f} s")
-    if a.json:
-        with open(a.json, "w", encoding="utf-8") as fh:
-            json.dump(rows, fh, indent=1, default=str)
-    return 0
-
-
-if __name__ == "__main__":
-    raise SystemExit(main())
+    say("power: planted-truth recovery")
+    rows = run_power(quick, sizes, seeds, tasks, trees, say=say)
+    lines = ["", render_power(rows), f"power wall time {time.perf_counter() - t0:.0f} s"]
+    return Section(power_figures(rows), raw={"power": rows}, lines=lines)

@@ -23,20 +23,24 @@ three-way split forced (``Settings(split=(0.5, 0.25, 0.25))``) and the row says 
 
 Goal (issue 12): the equation never more than 0.01 behind the better hand fit, and ahead wherever
 the forest found an interaction.
+
+Run: ``python -m pocketforest.bench --only anchor`` (12 tables x 3 seeds, about 15 minutes on 2
+shared cores), ``--quick`` (3 small tables, 1 seed), ``--anchor-datasets iris,wine``,
+``--anchor-seeds 0,1``, ``--anchor-trees N``; ``--anchor`` adds it to the default sections.
 """
 from __future__ import annotations
 
 import argparse
-import json
-import dataclasses
-import sys
 import time
 import warnings
 from dataclasses import dataclass
+from pathlib import Path
 from typing import Callable
 
 import numpy as np
 import pandas as pd
+
+from .common import Figure, Section, int_list, name_list, settings
 
 GOAL_BEHIND = 0.01            # issue 12: never more than 0.01 behind the better hand fit
 SPLINE_DF = 4
@@ -266,7 +270,7 @@ def fit_hand(kind: str, frame: pd.DataFrame, y: np.ndarray, family: str, kinds: 
     params = None if res is None else np.asarray(res.params, dtype=float)
     runaway = res is None or bool(flagged) or not np.all(np.isfinite(params))
     if logit and runaway:
-        from pocketforest.separation import firth_fit
+        from ..separation import firth_fit
         k = int(np.max(y)) + 1 if family == "multinomial" else 2
         try:
             params = np.asarray(firth_fit(X, y.astype(int), k).params, dtype=float)
@@ -383,14 +387,8 @@ def _equation_interactions(result) -> int:
 # --------------------------------------------------------------------------- one run
 
 
-def _settings(**kw):
-    from pocketforest.pipeline import Settings
-    known = {f.name for f in dataclasses.fields(Settings)}
-    return Settings(**{k: v for k, v in kw.items() if k in known})
-
-
 def _score(y, pred, task, classes) -> dict[str, float]:
-    from pocketforest.evaluate import metrics
+    from ..evaluate import metrics
     m = metrics(y, pred, task, classes, auc=False)
     return {k: m[k] for k in (("r2",) if task == "regression" else ("accuracy", "log_loss"))}
 
@@ -409,12 +407,12 @@ def _codes(y: np.ndarray, task: str, classes) -> np.ndarray:
 def anchor_one(ds: Dataset, seed: int, trees: int) -> dict:
     """distill one table with one seed, fit the hand GLMs on its non-test rows, score all on its
     test rows (or on its folds)."""
-    from pocketforest.intake import prepare
-    from pocketforest.pipeline import distill
+    from ..intake import prepare
+    from .. import pipeline
 
     t0 = time.perf_counter()
     table = prepare(ds.build(), ds.target, task=ds.task, categorical=ds.categorical, source=ds.name)
-    result = distill(table, _settings(trees=trees, seed=seed, quiet=True, bootstrap=BOOTSTRAP))
+    result = pipeline.distill(table, settings(trees=trees, seed=seed, quiet=True, bootstrap=BOOTSTRAP))
     plan, notes = _plan_of(result), []
     folds = None
     if plan != "test":
@@ -422,7 +420,7 @@ def anchor_one(ds: Dataset, seed: int, trees: int) -> dict:
         if folds is None:
             notes.append(f"the pipeline judged by {plan} without exposing its folds: rerun with the "
                          f"three-way split forced, Settings(split={FORCED_SPLIT})")
-            result = distill(table, _settings(trees=trees, seed=seed, quiet=True, bootstrap=BOOTSTRAP,
+            result = pipeline.distill(table, settings(trees=trees, seed=seed, quiet=True, bootstrap=BOOTSTRAP,
                                               split=FORCED_SPLIT))
             plan = "forced three-way split" if _plan_of(result) == "test" else _plan_of(result) + " (forcing failed)"
     data = result.table.data.reset_index(drop=True)
@@ -595,29 +593,35 @@ def render_anchor(rows: list[dict]) -> str:
     return "\n".join(lines)
 
 
-def main(argv: list[str] | None = None) -> int:
-    p = argparse.ArgumentParser(prog="python -m pocketforest.bench_anchor", description=__doc__.splitlines()[0])
-    p.add_argument("--quick", action="store_true", help="three small tables, one seed, few trees (under a minute)")
-    p.add_argument("--datasets", help=f"comma-separated subset of: {', '.join(DATASETS)}")
-    p.add_argument("--seeds", help="comma-separated seeds (default 0,1,2; quick: 0)")
-    p.add_argument("--trees", type=int, help=f"forest trees (default {FULL_TREES}; quick: {QUICK_TREES})")
-    p.add_argument("--json", help="also write every run's row to this JSON file")
-    a = p.parse_args(argv)
-    names = tuple(x.strip() for x in a.datasets.split(",")) if a.datasets else None
-    unknown = [x for x in names or () if x not in DATASETS]
-    if unknown:
-        print(f"error: unknown data set {unknown[0]!r}: choose from {', '.join(DATASETS)}", file=sys.stderr)
-        return 2
-    seeds = tuple(int(x) for x in a.seeds.split(",")) if a.seeds else None
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    g = parser.add_argument_group("anchor section (--anchor)")
+    g.add_argument("--anchor-datasets", help=f"comma-separated subset of: {', '.join(DATASETS)}")
+    g.add_argument("--anchor-seeds", help="comma-separated seeds (default 0,1,2; --quick: 0)")
+    g.add_argument("--anchor-trees", type=int, help=f"forest trees (default {FULL_TREES}; --quick: {QUICK_TREES})")
+
+
+def options(args: argparse.Namespace) -> dict:
+    return {"datasets": name_list(args.anchor_datasets, DATASETS, "--anchor-datasets"),
+            "seeds": int_list(args.anchor_seeds, "--anchor-seeds"), "trees": args.anchor_trees}
+
+
+def anchor_figures(rows: list[dict]) -> list[Figure]:
+    """One judged figure per table: the worst equation − better hand fit over seeds."""
+    out = []
+    for s in summarise(rows):
+        out.append(Figure(f"anchor: {s['dataset']} eq - best hand ({s['metric']})",
+                          s["worst_gap"], f">= -{GOAL_BEHIND}", s["passed"],
+                          detail={k: v for k, v in s.items() if k != "notes"},
+                          note=f"worst of {s['seeds']} seed(s); mean {s['gap'][0]:+.3f}; interaction kept in {s['interaction_found']}/{s['seeds']}, "
+                               f"ahead in {s['ahead_with_interaction']} of those" if s["gap"][0] is not None else ""))
+    return out
+
+
+def run(quick: bool, root: Path, say, datasets: tuple[str, ...] | None = None,
+        seeds: tuple[int, ...] | None = None, trees: int | None = None) -> Section:
+    """The anchor section for ``python -m pocketforest.bench --anchor`` (no files under ``root``)."""
     t0 = time.perf_counter()
-    rows = run_anchor(a.quick, names, seeds, a.trees, say=lambda t: print(t, file=sys.stderr, flush=True))
-    print(render_anchor(rows))
-    print(f"\nwall time {time.perf_counter() - t0:.0f} s")
-    if a.json:
-        with open(a.json, "w", encoding="utf-8") as fh:
-            json.dump(rows, fh, indent=1, default=str)
-    return 0
-
-
-if __name__ == "__main__":
-    raise SystemExit(main())
+    say("anchor: equation against hand-built GLMs")
+    rows = run_anchor(quick, datasets, seeds, trees, say=say)
+    lines = ["", render_anchor(rows), f"anchor wall time {time.perf_counter() - t0:.0f} s"]
+    return Section(anchor_figures(rows), raw={"anchor": rows}, lines=lines)
