@@ -9,6 +9,11 @@ Sections, each a submodule with ``run(quick, root, say) -> common.Section``:
 * :mod:`.speed`  — distill, scoring, memory and size figures (always run);
 * :mod:`.honest` — null rejection and loss-interval coverage from :mod:`pocketforest.simulate`
   (always run).
+* :mod:`.anchor` — the equation against hand-built GLMs on public tables (``--anchor``);
+* :mod:`.power`  — planted-truth recovery and noise by size (``--power``).
+
+``--only NAME,...`` runs just the named sections (e.g. ``--only anchor`` while changing discovery);
+a section may add its own options (``add_arguments``/``options``), e.g. ``--power-sizes``.
 
 A new section (power, anchor, tree, cluster, ...) is a new submodule registered in
 :data:`.cli.SECTIONS` with its own flag; :mod:`.common` holds what sections share (the seeded

@@ -7,6 +7,7 @@ memory is its own.
 """
 from __future__ import annotations
 
+import dataclasses
 import json
 import os
 import platform
@@ -19,6 +20,8 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
+
+from ..errors import InputError
 
 REGIONS = ["north", "south", "east", "west", "centre"]
 GRADES = list("ABCDEFGH")
@@ -80,6 +83,41 @@ def judge(value: float | None, op: str, bound: float) -> bool | None:
     if value is None or not np.isfinite(value):
         return None
     return bool(value <= bound) if op == "<=" else bool(value >= bound) if op == ">=" else bool(value < bound)
+
+
+# --------------------------------------------------------------------------- section options
+
+
+def name_list(text: str | None, known, what: str) -> tuple[str, ...] | None:
+    """Comma-separated names from a command-line option, each one of ``known`` (None if not given)."""
+    if not text:
+        return None
+    names = tuple(x.strip() for x in text.split(",") if x.strip())
+    unknown = [x for x in names if x not in known]
+    if unknown or not names:
+        raise InputError(f"{what} {text!r}: choose from {', '.join(known)}")
+    return names
+
+
+def int_list(text: str | None, what: str) -> tuple[int, ...] | None:
+    """Comma-separated whole numbers from a command-line option (None if not given)."""
+    if not text:
+        return None
+    try:
+        values = tuple(int(x.strip().replace("_", "")) for x in text.split(",") if x.strip())
+    except ValueError:
+        raise InputError(f"{what} {text!r}: give comma-separated whole numbers, e.g. 0,1,2") from None
+    if not values:
+        raise InputError(f"{what} {text!r}: give comma-separated whole numbers, e.g. 0,1,2")
+    return values
+
+
+def settings(**kw):
+    """``pipeline.Settings`` from the keywords it knows: sections keep running while the pipeline
+    gains or drops options."""
+    from ..pipeline import Settings
+    known = {f.name for f in dataclasses.fields(Settings)}
+    return Settings(**{k: v for k, v in kw.items() if k in known})
 
 
 # --------------------------------------------------------------------------- child processes

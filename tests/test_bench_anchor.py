@@ -1,0 +1,153 @@
+"""The anchor section: hand-built GLMs are what they claim to be, and the quick run is well formed."""
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from pocketforest.bench import anchor, cli
+
+
+@pytest.fixture(scope="module")
+def quick_section(tmp_path_factory):
+    """The section exactly as `python -m pocketforest.bench --only anchor --quick` runs it."""
+    return anchor.run(True, tmp_path_factory.mktemp("anchor"), lambda text: None)
+
+
+@pytest.fixture(scope="module")
+def quick_rows(quick_section) -> list[dict]:
+    return quick_section.raw["anchor"]
+
+
+def test_section_has_one_judged_figure_per_table(quick_section, quick_rows):
+    figs = quick_section.figures
+    assert len(figs) == len(anchor.QUICK_DATASETS)
+    for f, r in zip(figs, quick_rows):
+        assert r["dataset"] in f.name and f.value == pytest.approx(r["gap"]) and f.passed == r["passed"]
+    assert any("hand spline" in line for line in quick_section.lines)
+
+
+def test_quick_run_covers_its_tables_with_every_figure(quick_rows):
+    assert [r["dataset"] for r in quick_rows] == list(anchor.QUICK_DATASETS)
+    for r in quick_rows:
+        m = r["metric"]
+        assert m == ("r2" if r["task"] == "regression" else "accuracy")
+        for key in ("forest_", "equation_", "main_", "splines_"):
+            assert np.isfinite(r[key + m]), (r["dataset"], key)
+        assert r["best_hand"] == max(r["main_" + m], r["splines_" + m])
+        assert r["gap"] == pytest.approx(r["equation_" + m] - r["best_hand"], abs=1e-12)
+        assert r["passed"] == (r["gap"] >= -anchor.GOAL_BEHIND)
+        assert r["n_fit"] + r["n_test"] == r["n"]       # hand fits saw every non-test row
+    text = anchor.render_anchor(quick_rows)
+    for name in anchor.QUICK_DATASETS:
+        assert name in text and anchor.DATASETS[name].source in text
+
+
+def test_scored_on_the_pipelines_own_test_rows(quick_rows):
+    # the pipeline scores forest and equation on its test rows with the same metric function;
+    # equal figures mean the anchor used exactly those rows (same arithmetic, so 1e-12)
+    for r in quick_rows:
+        if r["plan"] == "test":
+            for model in ("forest", "equation"):
+                assert r[f"{model}_{r['metric']}"] == pytest.approx(r["pipeline_figures"][model], abs=1e-12)
+
+
+def test_design_widths_match_the_prespecified_models(quick_rows):
+    # diabetes: 9 numbers (each with more than 7 distinct values) and sex (two levels)
+    r = next(r for r in quick_rows if r["dataset"] == "diabetes")
+    assert r["main_width"] == 1 + 9 + 1
+    assert r["splines_width"] == 1 + 4 * 9 + 1
+    assert r["splines_rank"] == r["splines_width"]     # centred cr(): 4 identifiable df per number
+    f = next(r for r in quick_rows if r["dataset"] == "friedman1")
+    assert (f["main_width"], f["splines_width"]) == (11, 41)
+
+
+def _toy(n: int = 400, seed: int = 0) -> pd.DataFrame:
+    """Invented: y bends in x (a parabola), shifts by group, and a 0/1 flag adds a step."""
+    rng = np.random.default_rng(seed)
+    df = pd.DataFrame({"x": rng.uniform(-2, 2, n), "z": rng.normal(size=n),
+                       "flag": rng.integers(0, 2, n).astype(float), "g": rng.choice(["a", "b", "c"], n)})
+    df["y"] = df.x ** 2 + 0.5 * df.z + 0.7 * df.flag + np.where(df.g == "b", 1.0, 0.0) + rng.normal(0, 0.3, n)
+    return df
+
+
+def test_main_effects_fit_is_ordinary_least_squares():
+    # reference: numpy's least squares on the same treatment-coded design (Gaussian GLM = OLS)
+    df = _toy()
+    kinds = {"x": "numeric", "z": "numeric", "flag": "numeric", "g": "categorical"}
+    frame, names = anchor.hand_frame(df, kinds, df)
+    h = anchor.fit_hand("main", frame, df.y.to_numpy(), "gaussian", kinds, names)
+    X = np.column_stack([np.ones(len(df)), df.g == "b", df.g == "c", df.x, df.z, df.flag]).astype(float)
+    beta = np.linalg.lstsq(X, df.y.to_numpy(), rcond=None)[0]
+    # IRLS for the identity link is one exact weighted least-squares solve: agreement to rounding
+    np.testing.assert_allclose(h.predict(frame), X @ beta, atol=1e-8)
+    assert h.width == 6
+
+
+def test_spline_fit_has_four_df_per_number_and_finds_the_bend():
+    df = _toy()
+    kinds = {"x": "numeric", "z": "numeric", "flag": "numeric", "g": "categorical"}
+    frame, names = anchor.hand_frame(df, kinds, df)
+    main = anchor.fit_hand("main", frame, df.y.to_numpy(), "gaussian", kinds, names)
+    spl = anchor.fit_hand("splines", frame, df.y.to_numpy(), "gaussian", kinds, names)
+    # x and z get 4 columns each; the two-valued flag enters as a line; g has two contrasts
+    assert spl.width == 1 + 4 + 4 + 1 + 2 and spl.rank == spl.width
+    assert 'cr(v0, df=4, constraints="center")' in spl.formula
+    resid = lambda h: np.mean((df.y.to_numpy() - h.predict(frame)) ** 2)
+    # a line cannot follow x²: its residual variance keeps Var(x²) = 16/45 ≈ 0.36 on U(-2, 2),
+    # the spline's falls to near the noise variance 0.09
+    assert resid(spl) < 0.12 < 0.3 < resid(main)
+
+
+def test_unseen_levels_score_as_the_most_common_fitting_level():
+    fit = pd.DataFrame({"g": ["a", "a", "b"], "x": [1.0, 2.0, np.nan]})
+    new = pd.DataFrame({"g": ["c", None], "x": [np.nan, 5.0]})
+    frame, _ = anchor.hand_frame(new, {"g": "categorical", "x": "numeric"}, fit)
+    assert frame["v0"].tolist() == ["a", "a"]          # "" was not seen on the fitting rows either
+    assert frame["v1"].tolist() == [1.5, 5.0]          # median of the fitting rows
+
+
+def _relabelled(monkeypatch, folds: bool):
+    """The real distill, with its result relabelled as judged by cross-validation on its first call
+    (the plan issue 12 adds), so the anchor's two fallbacks run on today's pipeline."""
+    import pocketforest.pipeline as pipeline
+    real, calls = pipeline.distill, []
+
+    def fake(table, settings=None):
+        result = real(table, settings)
+        calls.append(settings)
+        if len(calls) == 1:
+            result.evaluation = dict(result.evaluation, on="cross-validation")
+            if folds:
+                from sklearn.model_selection import KFold
+                result.evaluation["folds"] = [t for _, t in KFold(3, shuffle=True, random_state=0)
+                                              .split(np.arange(len(result.table.data)))]
+        return result
+
+    monkeypatch.setattr(pipeline, "distill", fake)
+    return calls
+
+
+def test_cross_validation_without_folds_forces_the_three_way_split(monkeypatch):
+    calls = _relabelled(monkeypatch, folds=False)
+    row = anchor.anchor_one(anchor.DATASETS["iris"], seed=0, trees=10)
+    assert len(calls) == 2 and tuple(calls[1].split) == anchor.FORCED_SPLIT
+    assert row["plan"] == "forced three-way split" and any("forced" in n for n in row["notes"])
+    assert row["n_fit"] + row["n_test"] == row["n"]
+
+
+def test_cross_validation_with_folds_refits_the_hand_glms_on_each_fold(monkeypatch):
+    _relabelled(monkeypatch, folds=True)
+    row = anchor.anchor_one(anchor.DATASETS["iris"], seed=0, trees=10)
+    assert row["plan"].startswith("cross-validation") and "3 folds" in row["plan"]
+    assert row["n_test"] == 50 and row["n_fit"] == 100             # 150 rows, three equal folds
+    assert 0.5 < row["main_accuracy"] <= 1.0 and np.isfinite(row["splines_accuracy"])
+    assert row["equation_accuracy"] is not None                    # read from result.evaluation
+
+
+@pytest.mark.parametrize("argv", [["--only", "nope"], ["--only", "anchor", "--anchor-datasets", "iris,nope"],
+                                  ["--only", "anchor", "--anchor-seeds", "one"]])
+def test_bad_section_options_are_one_error_line(argv, capsys):
+    assert cli.main(argv) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and err[0].startswith("error: ")
