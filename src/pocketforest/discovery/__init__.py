@@ -77,7 +77,8 @@ def discover(forest: ForestFit, features: list[Feature], task: str, disc: pd.Dat
     pairs = search_pairs(ctx, material)
 
     ctx.say("  choosing terms on the discovery rows")
-    sel = select_terms(ctx, material, requested, shapes, pairs)
+    weak = {v for v in material if not mat.evidence[v].strong and not mat.evidence[v].requested}
+    sel = select_terms(ctx, material, requested, shapes, pairs, [i.feature for i in importance], weak)
     terms = sel.terms
     chosen_pairs = {frozenset(t.variables) for t in terms if t.kind == "interaction"}
     for rec in pairs:

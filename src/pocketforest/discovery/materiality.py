@@ -47,6 +47,9 @@ class Evidence:
     passed: bool
     requested: bool = False
     left_out: bool = False
+    #: Above the family-wise (Bonferroni) bound too; a column that passes only the per-column bound
+    #: must also pay the extended BIC's extra penalty to stay in the discovery-row GLM.
+    strong: bool = True
 
     @property
     def decision(self) -> str:
@@ -58,7 +61,7 @@ class Evidence:
 
     def to_dict(self) -> dict:
         return {"oob_importance": self.oob_importance, "oob_se": self.oob_se, "z": self.z,
-                "passed": self.passed, "requested": self.requested, "decision": self.decision}
+                "passed": self.passed, "strong": self.strong, "requested": self.requested, "decision": self.decision}
 
 
 @dataclass
@@ -94,10 +97,11 @@ def judge_materiality(ctx: Context, increases: Increases, names: list[str]) -> M
     # Bonferroni over the columns unless the discovery-row GLM will check every main effect too
     per_column = ALPHA if ctx.glm_checks_main_effects else ALPHA / max(1, len(names))
     threshold = scale * float(stats.norm.ppf(1.0 - per_column))
+    family_wise = scale * float(stats.norm.ppf(1.0 - ALPHA / max(1, len(names))))
     evidence, material = {}, []
     for j, name in enumerate(names):
         ev = Evidence(float(mean[j]), float(se[j]), float(z[j]), bool(z[j] > threshold),
-                      requested=name in keep, left_out=name in drop)
+                      requested=name in keep, left_out=name in drop, strong=bool(z[j] > family_wise))
         evidence[name] = ev
         if not ev.left_out and (ev.passed or ev.requested):
             material.append(name)

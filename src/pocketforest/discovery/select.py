@@ -162,7 +162,9 @@ class Selection:
 
 
 def select_terms(ctx: Context, material: list[str], requested: set[str], shapes: dict,
-                 pairs: list[dict]) -> Selection:
+                 pairs: list[dict], ranked: list[str] | None = None, weak: set[str] = frozenset()) -> Selection:
+    """``ranked``: every feature, strongest out-of-bag importance first (orders the main effects
+    the forest did not single out)."""
     n = len(ctx.frame)
     rows = np.sort(ctx.rng(29).permutation(n)[:min(n, SELECT_ROWS[ctx.task])])
     data = ctx.frame.iloc[rows].reset_index(drop=True)
@@ -172,14 +174,19 @@ def select_terms(ctx: Context, material: list[str], requested: set[str], shapes:
     order = sorted(material, key=lambda v: (v not in requested, material.index(v)))
     if ctx.requests.max_terms is not None:
         order = order[:ctx.requests.max_terms]
-    base = [Term("linear" if kinds[v] == "numeric" else "categorical", [v], evidence={"reason": "main effect"})
-            for v in order]
-    others = [f.name for f in ctx.features if f.name not in material and f.name not in ctx.requests.drop]
+    ranked = ranked or [f.name for f in ctx.features]
+    others = [v for v in ranked if v not in material and v not in ctx.requests.drop]
     if ctx.requests.max_terms is not None:
         others = []
-    candidates = (_main_candidates(ctx, others) + _bend_candidates(ctx, order, shapes)
+    if not ctx.glm_checks_main_effects:
+        # Small tables: every main effect, as a hand-built model would have them; the estimation
+        # is penalised where the rows are short, rather than the weak variables being guessed away.
+        order, others = order + others, []
+    base = [Term("linear" if kinds[v] == "numeric" else "categorical", [v], evidence={"reason": "main effect"})
+            for v in order]
+    candidates = (_main_candidates(ctx, others) + _bend_candidates(ctx, [v for v in order if v in material], shapes)
                   + _pair_candidates(ctx, order, pairs))
-    return _forward_backward(ctx, base, candidates, data, y, requested, len(rows))
+    return _forward_backward(ctx, base, candidates, data, y, requested, len(rows), weak)
 
 
 def _main_candidates(ctx: Context, variables: list[str]) -> list[Candidate]:
@@ -278,10 +285,12 @@ def _levels(frame: pd.DataFrame, var: str) -> list[str]:
 
 
 def _forward_backward(ctx: Context, base: list[Term], candidates: list[Candidate], data: pd.DataFrame,
-                      y: np.ndarray, requested: set[str], n_rows: int) -> Selection:
+                      y: np.ndarray, requested: set[str], n_rows: int, weak: set[str] = frozenset()) -> Selection:
     kinds, fills = ctx.kinds, ctx.fills
     crit = Criterion(y, ctx.task, ctx.classes)
     pools = {p: sum(c.pool == p for c in candidates) for p in ("main", "bend", "pair")}
+    weak_base = {i for i, t in enumerate(base) if t.variables[0] in weak} if ctx.glm_checks_main_effects else set()
+    pools["main"] += len(weak_base)
     extra = {p: 2.0 * np.log(max(1, k)) for p, k in pools.items()}     # extended BIC, γ = 1
     base_cols = [_columns([t], data, fills, kinds) for t in base]
     cols = {c.key: _columns(c.terms, data, fills, kinds) for c in candidates}
@@ -294,7 +303,8 @@ def _forward_backward(ctx: Context, base: list[Term], candidates: list[Candidate
 
     def penalised(mains: list[int], chosen: list[str]) -> float:
         by = {c.key: c for c in candidates}
-        return crit(design(mains, chosen)) + sum(extra[by[k].pool] for k in chosen)
+        return (crit(design(mains, chosen)) + sum(extra[by[k].pool] for k in chosen)
+                + extra["main"] * sum(i in weak_base for i in mains))
 
     mains = list(range(len(base)))
     chosen: list[str] = []
@@ -312,7 +322,7 @@ def _forward_backward(ctx: Context, base: list[Term], candidates: list[Candidate
                  and (budget is None or width + cols[c.key].shape[1] <= budget)
                  and (max_terms is None or n_terms + len(c.terms) <= max_terms)]
         current = design(mains, chosen)
-        fixed = sum(extra[by_key[k].pool] for k in chosen)
+        fixed = sum(extra[by_key[k].pool] for k in chosen) + extra["main"] * sum(i in weak_base for i in mains)
         for c, value in zip(open_, crit.extended(current, [cols[c.key] for c in open_])):
             s = value + fixed + extra[c.pool]
             if s < best_score - 1e-9:
