@@ -133,7 +133,7 @@ def frontier_plot(frontier: list[dict], key: str, chosen: int, cap: int | None, 
     ax.minorticks_off()
     ax.set_xlabel("leaves in the tree")
     ax.set_ylabel("fidelity: " + ("R²" if key == "r2" else "R² of class probabilities"))
-    ax.legend(frameon=False, fontsize=7, loc="lower right")
+    ax.legend(frameon=False, fontsize=7, loc="upper left")
     return to_svg(fig, "fidelity of the surrogate tree against its number of leaves")
 
 
