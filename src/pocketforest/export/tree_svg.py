@@ -14,6 +14,7 @@ more loosely.
 from __future__ import annotations
 
 import textwrap
+import warnings
 from dataclasses import dataclass
 from xml.sax.saxutils import escape, quoteattr
 
@@ -33,7 +34,9 @@ def _width(text: str, size: float, bold: bool = False) -> float:
     from matplotlib.font_manager import FontProperties
     from matplotlib.textpath import TextToPath
     font = FontProperties(family="DejaVu Sans", size=size, weight="bold" if bold else "normal")
-    w, _, _ = TextToPath().get_text_width_height_descent(text, font, ismath=False)
+    with warnings.catch_warnings():   # a glyph DejaVu lacks (CJK, emoji) measures as its placeholder box
+        warnings.simplefilter("ignore")
+        w, _, _ = TextToPath().get_text_width_height_descent(text, font, ismath=False)
     return float(w)
 
 
