@@ -12,7 +12,8 @@ from conftest import synthetic_table
 from pocketforest.design import make_preprocessor, model_frame
 from pocketforest.forest import fit_forest
 from pocketforest.intake import prepare
-from pocketforest.surrogate import (DEPTHS, _prefix_outputs, distill_tree, fidelity, fit_tree, frontier_fidelity,
+from pocketforest.evaluate import fidelity
+from pocketforest.surrogate import (DEPTHS, _prefix_outputs, depth_fidelity, distill_tree, fit_tree, frontier_fidelity,
                                     mean_frontier, synthetic_rows)
 
 
@@ -88,6 +89,27 @@ def test_default_size_is_the_smallest_within_the_margin_of_the_best_under_the_ca
     entry = next(row for row in fit.frontier if row["leaves"] == fit.leaves)
     assert entry["held_out"] == fidelity(forest.predict_design(Xt), own, task)
     assert [row["depth"] for row in fit.fidelity_by_depth] == list(DEPTHS)
+
+
+@pytest.mark.parametrize("task,k", [("regression", 2), ("classification", 2)])
+def test_depth_curve_is_the_deepest_tree_cut_at_each_depth(task, k):
+    """One depth-first fit gives the whole curve; each depth must match scikit-learn's own tree
+    grown to that depth (same leaves; node values agree to the rounding of their sums, so the
+    fidelity figures agree to about 1e-12)."""
+    forest, X = _forest(task, k)
+    fit = distill_tree(forest, X.iloc[:200], X.iloc[200:300], X.iloc[300:], seed=0)
+    prep = forest.pipeline.named_steps["prep"]
+    Xf = np.asarray(prep.transform(X.iloc[:200]), dtype=np.float32)
+    Xo = np.asarray(prep.transform(X.iloc[300:]), dtype=np.float32)
+    labels = getattr(forest.model, "classes_", None)
+    for row in fit.fidelity_by_depth[:6:2]:
+        ref = fit_tree(Xf, forest.predict_design(Xf), task, seed=0, min_leaf=5, labels=labels, max_depth=row["depth"])
+        out = ref.predict(Xo) if task == "regression" else ref.predict_proba(Xo)
+        assert row["leaves"] == ref.get_n_leaves()
+        for key, value in fidelity(forest.predict_design(Xo), out, task).items():
+            assert row["held_out"][key] == pytest.approx(value, abs=1e-12)
+    assert depth_fidelity(fit, forest, X.iloc[300:])[3] == {"depth": 4, "leaves": fit.fidelity_by_depth[3]["leaves"],
+                                                            **fit.fidelity_by_depth[3]["held_out"]}
 
 
 def test_a_bigger_tree_and_a_fixed_depth_are_one_option_away():

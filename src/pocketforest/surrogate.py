@@ -22,7 +22,7 @@ the forest's surface more closely without asking for more measured outcomes.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
@@ -53,7 +53,7 @@ class TreeFit:
     frontier: list[dict]
     fidelity_by_depth: list[dict]
     grown: DecisionTreeRegressor | DecisionTreeClassifier   # the frontier's trees are its prefixes
-    by_depth: dict[int, DecisionTreeRegressor | DecisionTreeClassifier] = field(default_factory=dict)
+    deep: DecisionTreeRegressor | DecisionTreeClassifier | None = None    # depth-first to max(DEPTHS)
     synthetic_rows: int = 0
     held_out_on: str | None = None
 
@@ -134,10 +134,6 @@ def measure(task: str) -> str:
     return "r2" if task == "regression" else "probability_r2"
 
 
-def _output(tree, Xt: np.ndarray, task: str) -> np.ndarray:
-    return tree.predict(Xt) if task == "regression" else tree.predict_proba(Xt)
-
-
 # ---------------------------------------------------------------------------- the frontier
 
 def _split_order(tree) -> np.ndarray:
@@ -155,9 +151,8 @@ def frontier_sizes(tree) -> list[int]:
     return list(range(2, int(tree.get_n_leaves()) + 1))
 
 
-def _prefix_outputs(tree, Xt: np.ndarray, sizes: list[int], task: str) -> dict[int, np.ndarray]:
-    """Each k-leaf prefix's output on ``Xt``: a row stops at the first node on its path that is a
-    leaf of the prefix, i.e. whose split rank is k - 1 or more (ranks grow along any path)."""
+def _paths(tree, Xt: np.ndarray) -> np.ndarray:
+    """[rows, max_depth + 1]: the node each row is at after 0, 1, ... steps (it stays at its leaf)."""
     t = tree.tree_
     X = np.asarray(Xt, dtype=np.float32)
     rows = np.arange(len(X))
@@ -168,25 +163,58 @@ def _prefix_outputs(tree, Xt: np.ndarray, sizes: list[int], task: str) -> dict[i
         go_left = X[rows, np.maximum(t.feature[node], 0)] <= t.threshold[node]
         node = np.where(leaf, node, np.where(go_left, t.children_left[node], t.children_right[node]))
         path.append(node)
-    path = np.stack(path, axis=1)
+    return np.stack(path, axis=1)
+
+
+def _node_outputs(tree, nodes: np.ndarray, task: str) -> np.ndarray:
+    """Each node's output as if it were a leaf: the mean of its rows' values, or their class
+    fractions (what predict_proba returns, scikit-learn >= 1.4)."""
+    values = tree.tree_.value[:, 0, :]
+    return values[nodes, 0] if task == "regression" else values[nodes]
+
+
+def _prefix_outputs(tree, Xt: np.ndarray, sizes: list[int], task: str) -> dict[int, np.ndarray]:
+    """Each k-leaf prefix's output on ``Xt``: a row stops at the first node on its path that is a
+    leaf of the prefix, i.e. whose split rank is k - 1 or more (ranks grow along any path)."""
+    path = _paths(tree, Xt)
     rank = _split_order(tree)[path]
-    values = t.value[:, 0, :]   # classification: class fractions, what predict_proba returns (scikit-learn >= 1.4)
-    out = {}
-    for k in sizes:
-        stop = path[rows, (rank < k - 1).sum(axis=1)]
-        out[k] = values[stop, 0] if task == "regression" else values[stop]
-    return out
+    rows = np.arange(len(path))
+    return {k: _node_outputs(tree, path[rows, (rank < k - 1).sum(axis=1)], task) for k in sizes}
 
 
-def _prefix_depths(tree, sizes: list[int]) -> dict[int, int]:
+def _node_depths(tree) -> np.ndarray:
     t = tree.tree_
     depth = np.zeros(t.node_count, dtype=np.int64)
     for i in range(t.node_count):   # parents come before children in scikit-learn's numbering
         if t.children_left[i] >= 0:
             depth[t.children_left[i]] = depth[t.children_right[i]] = depth[i] + 1
+    return depth
+
+
+def _prefix_depths(tree, sizes: list[int]) -> dict[int, int]:
+    depth = _node_depths(tree)
     order = _split_order(tree)
-    internal = t.children_left >= 0
+    internal = tree.tree_.children_left >= 0
     return {k: int(depth[internal & (order < k - 1)].max() + 1) if k > 1 else 0 for k in sizes}
+
+
+def _depth_curve(tree, Xt: np.ndarray, forest_out: np.ndarray, task: str) -> list[dict]:
+    """Fidelity of the depth-first tree cut at each depth of :data:`DEPTHS`.
+
+    Depth-first growth splits a node on its own rows alone, so the tree grown to depth d is the
+    deepest tree cut at depth d: one fit gives the whole curve (node values agree with a fit to
+    depth d to the last bits of their sums; tests/test_surrogate.py checks the curve).
+    """
+    path = _paths(tree, Xt)
+    t = tree.tree_
+    depth = _node_depths(tree)
+    leaf = t.children_left < 0
+    out = []
+    for d in DEPTHS:
+        nodes = path[:, min(d, path.shape[1] - 1)]
+        leaves = int(((depth == d) | (leaf & (depth < d))).sum())
+        out.append({"depth": d, "leaves": leaves, **fidelity(forest_out, _node_outputs(tree, nodes, task), task)})
+    return out
 
 
 def _frontier(tree, Xt: np.ndarray, forest_out: np.ndarray, task: str) -> list[dict]:
@@ -263,24 +291,25 @@ def distill_tree(forest: ForestFit, X_fit: pd.DataFrame, X_choose: pd.DataFrame,
     cap = int(leaves) if leaves is not None else TREE_LEAVES
     frontier_depth = depth if rule_frontier else None
 
-    # The frontier's tree and the depth-first trees are independent fits with their own seed:
-    # grow them in parallel threads (scikit-learn's tree builder releases the GIL).
-    depths = list(DEPTHS) + ([depth] if depth is not None and depth not in DEPTHS else [])
-    jobs = [dict(max_leaf_nodes=max(FRONTIER_LEAVES, cap), max_depth=frontier_depth)]
-    jobs += [dict(max_depth=d) for d in depths]
+    # The frontier's best-first tree and the depth-first tree of the depth curve are independent
+    # fits with their own seed: grow them in parallel threads (the tree builder releases the GIL).
+    jobs = [dict(max_leaf_nodes=max(FRONTIER_LEAVES, cap), max_depth=frontier_depth), dict(max_depth=max(DEPTHS))]
+    if not rule_frontier and depth != max(DEPTHS):
+        jobs.append(dict(max_depth=depth))
     fitted = thread_map(lambda kw: fit_tree(Xf, yf, task, seed=seed, min_leaf=min_leaf, labels=labels, **kw),
                         jobs, -1)
-    grown, by_depth = fitted[0], dict(zip(depths, fitted[1:]))
+    grown, deep = fitted[0], fitted[1]
 
     frontier = [{"leaves": c["leaves"], "depth": c["depth"], "confirmation": _only_fidelity(c),
                  "held_out": None} for c in _frontier(grown, Xc, yc, task)]
     if yt is not None:
         for row, h in zip(frontier, _frontier(grown, Xt, yt, task)):
             row["held_out"] = _only_fidelity(h)
-    curve = [{"depth": d, "leaves": int(by_depth[d].get_n_leaves()),
-              "confirmation": fidelity(yc, _output(by_depth[d], Xc, task), task),
-              "held_out": fidelity(yt, _output(by_depth[d], Xt, task), task) if yt is not None else None}
-             for d in DEPTHS]
+    curve = [{"depth": c["depth"], "leaves": c["leaves"], "confirmation": _only_fidelity(c), "held_out": None}
+             for c in _depth_curve(deep, Xc, yc, task)]
+    if yt is not None:
+        for row, h in zip(curve, _depth_curve(deep, Xt, yt, task)):
+            row["held_out"] = _only_fidelity(h)
 
     if rule_frontier:
         k, chosen_row, best = choose_leaves(frontier, cap, margin, key)
@@ -288,7 +317,7 @@ def distill_tree(forest: ForestFit, X_fit: pd.DataFrame, X_choose: pd.DataFrame,
                         max_leaf_nodes=max(2, k or 2), max_depth=frontier_depth)
         chosen_by = _frontier_rule(key, cap, margin, depth, chosen_row, best)
     else:
-        tree = by_depth[depth]
+        tree = fitted[-1]
         chosen_by = {"rule": "depth", "max_depth": int(depth), "cap": None, "margin": None, "measure": key,
                      "rows": None, "text": f"set by --tree-depth {depth}: grown depth-first to depth {depth}, "
                                            "no leaf cap"}
@@ -296,11 +325,18 @@ def distill_tree(forest: ForestFit, X_fit: pd.DataFrame, X_choose: pd.DataFrame,
         chosen_by["text"] += f"; fitted on the discovery rows plus {n_synthetic} synthetic rows labelled by the forest"
     pipeline = Pipeline([("prep", prep), ("tree", tree)])
     return TreeFit(pipeline, int(tree.get_depth()), int(tree.get_n_leaves()), chosen_by, frontier, curve,
-                   grown, by_depth, int(n_synthetic), "test" if yt is not None else None)
+                   grown, deep, int(n_synthetic), "test" if yt is not None else None)
 
 
 def _only_fidelity(row: dict) -> dict:
     return {k: v for k, v in row.items() if k not in ("leaves", "depth")}
+
+
+def depth_fidelity(fit: TreeFit, forest: ForestFit, X: pd.DataFrame) -> list[dict]:
+    """Like :func:`frontier_fidelity`, for the depth curve: ``{"depth", "leaves", **fidelity}``
+    per depth of :data:`DEPTHS`, in the order of ``fit.fidelity_by_depth``."""
+    Xt = np.asarray(forest.pipeline.named_steps["prep"].transform(X), dtype=np.float32)
+    return _depth_curve(fit.deep, Xt, forest.predict_design(Xt), forest.task)
 
 
 def _frontier_rule(key: str, cap: int, margin: float, depth: int | None, chosen: dict | None,
