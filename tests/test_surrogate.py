@@ -138,6 +138,10 @@ def test_without_test_rows_the_frontier_is_measured_later_on_held_out_rows():
     halves = [frontier_fidelity(bare, forest, X.iloc[300:350]), frontier_fidelity(bare, forest, X.iloc[350:])]
     mean = mean_frontier(halves)
     assert mean[3]["r2"] == pytest.approx((halves[0][3]["r2"] + halves[1][3]["r2"]) / 2, abs=1e-15)
+    bare.record_held_out(mean, depth_fidelity(bare, forest, X.iloc[300:]), "cross-validation")
+    assert bare.to_dict()["frontier_held_out"] == "cross-validation"
+    assert bare.frontier[3]["held_out"] == {"r2": mean[3]["r2"]}
+    assert bare.fidelity_by_depth[2]["held_out"] == with_test.fidelity_by_depth[2]["held_out"]
 
 
 def test_class_fidelity_is_the_pooled_r2_of_the_probabilities():

@@ -61,6 +61,19 @@ class TreeFit:
     def model(self):
         return self.pipeline.named_steps["tree"]
 
+    def record_held_out(self, frontier: list[dict], by_depth: list[dict] | None, on: str) -> None:
+        """Fill in the ``held_out`` figures measured elsewhere (e.g. averaged over cross-validation
+        folds with :func:`mean_frontier` of :func:`frontier_fidelity` results), matched by size
+        and depth; ``on`` names those rows for the manifest and the report."""
+        def fill(rows: list[dict], found: list[dict], key: str) -> None:
+            by = {r[key]: {k: v for k, v in r.items() if k not in ("leaves", "depth")} for r in found}
+            for row in rows:
+                row["held_out"] = by.get(row[key])
+        fill(self.frontier, frontier, "leaves")
+        if by_depth is not None:
+            fill(self.fidelity_by_depth, by_depth, "depth")
+        self.held_out_on = on
+
     def to_dict(self) -> dict:
         """The manifest's ``tree`` section."""
         return {"depth": self.depth, "leaves": self.leaves, "chosen_by": self.chosen_by,
