@@ -14,6 +14,27 @@ ROOT = Path(__file__).resolve().parents[1]
 SRC = ROOT / "src"
 
 
+def chromium() -> str | None:
+    """A headless-capable Chromium on PATH (CI installs the Debian package `chromium`), or None."""
+    import shutil
+    for name in ("chromium", "chromium-browser", "google-chrome", "chrome"):
+        path = shutil.which(name)
+        if path:
+            return path
+    return None
+
+
+def screenshot(page: Path, shot: Path, size: tuple[int, int], tmp: Path) -> subprocess.CompletedProcess:
+    """Render a local file in headless Chromium, offline, to a PNG of ``size`` (width, height)."""
+    import tempfile
+    profile = tempfile.mkdtemp(prefix="pf-chromium-", dir=tmp)
+    cmd = [chromium(), "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
+           "--disable-background-networking", "--disable-component-update", "--disable-sync",
+           f"--user-data-dir={profile}", f"--screenshot={shot}", f"--window-size={size[0]},{size[1]}",
+           page.resolve().as_uri()]
+    return subprocess.run(cmd, capture_output=True, text=True, timeout=120, env=dict(os.environ, LANG="C.UTF-8"))
+
+
 def run_cli(*args: str, cwd: Path | None = None) -> subprocess.CompletedProcess:
     """Run `python -m pocketforest ...` the way a user would, from source."""
     env = dict(os.environ, PYTHONPATH=str(SRC))

@@ -67,7 +67,8 @@ def _cases(ctx: dict) -> dict[str, tuple[list[str], int]]:
         "leaf size 0": (_distill(c / "train_valid.csv", "--out", out, "--leaf-size", "0"), 2),
         "max leaves 1": (_distill(c / "train_valid.csv", "--out", out, "--max-leaves", "1"), 2),
         "tree depth 0": (_distill(c / "train_valid.csv", "--out", out, "--tree-depth", "0"), 2),
-        "fidelity target above 1": (_distill(c / "train_valid.csv", "--out", out, "--fidelity-target", "3"), 2),
+        "tree leaves 1": (_distill(c / "train_valid.csv", "--out", out, "--tree-leaves", "1"), 2),
+        "tree margin above 1": (_distill(c / "train_valid.csv", "--out", out, "--tree-margin", "3"), 2),
         "unknown option": (_distill(c / "train_valid.csv", "--out", out, "--colour-me", "red"), 2),
         "unknown command": (["fit", str(c / "train_valid.csv")], 2),
         # score

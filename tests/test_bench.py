@@ -23,12 +23,17 @@ FIGURES = [
     "score peak memory",
     "forest.onnx size",
     "OOB r2 cost of the defaults vs unconstrained trees",
+    # --tree (issue 13): fidelity at 8 and 12 leaves, greedy vs search vs synthetic rows
+    "tree default leaves (friedman1)", "tree default leaves (demo)",
+    "tree r² gain, exact at 8 leaves (friedman1)", "tree r² gain, lookahead at 12 leaves (demo)",
+    "tree r² gain, synthetic rows at 12 (demo)", "tree exact search time / distill time (friedman1)",
 ]
 
 
 def test_quick_benchmark_reports_every_figure(tmp_path):
     out = tmp_path / "bench.json"
-    proc = subprocess.run([sys.executable, "-m", "pocketforest.bench", "--quick", "--out", str(out), "--work", str(tmp_path)],
+    proc = subprocess.run([sys.executable, "-m", "pocketforest.bench", "--quick", "--tree", "--out", str(out),
+                           "--work", str(tmp_path)],
                           capture_output=True, text=True, cwd=ROOT, env=dict(os.environ, PYTHONPATH=str(SRC)), timeout=600)
     assert proc.returncode == 0, proc.stderr[-3000:]
     for name in FIGURES:
@@ -48,6 +53,11 @@ def test_quick_benchmark_reports_every_figure(tmp_path):
     assert raw["onnx_bytes"]["forest"] > 0 and raw["forest_nodes"] > 0
     # the size-keeping defaults were in force: the forest's leaves respect the cap it recorded
     assert raw["forest_settings"]["max_leaf_nodes"] >= 2
+    tree = result["raw"]["tree"]
+    for name in ("friedman1", "demo"):
+        assert {"greedy_8", "greedy_12", "optimal_8", "lookahead_12", "synthetic_12"} <= set(tree[name]["mean"])
+        assert tree[name]["distill_seconds"] > 0 and tree[name]["seconds"]["optimal_8"] > 0
+    assert "greedy  exact<=3  lookahead" in proc.stdout
     # the statistical figures are either measured by pocketforest.simulate or plainly absent
     for fig in result["figures"]:
         if fig["value"] is None:

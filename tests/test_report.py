@@ -2,21 +2,16 @@
 objects (checked against constructed truth), and the page rendered by a real browser."""
 from __future__ import annotations
 
-import os
 import re
-import shutil
-import subprocess
-import tempfile
-from pathlib import Path
 
 import numpy as np
 import pytest
 
-from conftest import synthetic_table
+from conftest import chromium, screenshot, synthetic_table
 
 SECTION_IDS = ["data", "scoreboard", "importance", "shapes", "interactions", "equation", "tree",
-               "fidelity-by-depth", "elsewhere", "cautions"]
-WITH_FIGURE = ["scoreboard", "importance", "shapes", "tree", "fidelity-by-depth"]
+               "tree-size", "elsewhere", "cautions"]
+WITH_FIGURE = ["scoreboard", "importance", "shapes", "tree", "tree-size"]
 
 
 def _sections(page: str) -> dict[str, str]:
@@ -142,27 +137,14 @@ def test_stored_discovery_curve_is_used(with_terms):
     assert len(c["equation"][0]) == 3 and abs(sum(c["equation"][0])) < 1e-9 and "centred" in c["scale"]
 
 
-def _chromium() -> str | None:
-    for name in ("chromium", "chromium-browser", "google-chrome", "chrome"):
-        path = shutil.which(name)
-        if path:
-            return path
-    return None
-
-
-@pytest.mark.skipif(_chromium() is None, reason="no Chromium on PATH (CI installs the Debian package "
+@pytest.mark.skipif(chromium() is None, reason="no Chromium on PATH (CI installs the Debian package "
                     "`chromium` in .ci/run; install it to run this test)")
 def test_report_renders_in_headless_chromium(bundles, tmp_path):
     """Open the page in a real browser, offline, and check the screenshot is not blank."""
     import matplotlib.image as mpimg
     page = bundles["regression"] / "report.html"
     shot = tmp_path / "page.png"
-    profile = tempfile.mkdtemp(prefix="pf-chromium-", dir=tmp_path)
-    cmd = [_chromium(), "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
-           "--disable-background-networking", "--disable-component-update", "--disable-sync",
-           f"--user-data-dir={profile}", f"--screenshot={shot}", "--window-size=1200,3000",
-           page.resolve().as_uri()]
-    res = subprocess.run(cmd, capture_output=True, text=True, timeout=120, env=dict(os.environ, LANG="C.UTF-8"))
+    res = screenshot(page, shot, (1200, 3000), tmp_path)
     assert shot.is_file(), res.stderr[-2000:]
     img = mpimg.imread(str(shot))[..., :3]
     assert img.shape[0] == 3000 and img.shape[1] == 1200

@@ -15,8 +15,8 @@ import pandas as pd
 
 def fit(data: pd.DataFrame | str | os.PathLike, target: str, *, task: str = "auto",
         categorical: Sequence[str] = (), ignore: Sequence[str] = (), random_state: int = 0,
-        n_trees: int = 500, tree_depth: int | None = None, split: tuple[float, float, float] | None = None,
-        quiet: bool = True):
+        n_trees: int = 500, tree_depth: int | None = None, tree_leaves: int | None = None,
+        split: tuple[float, float, float] | None = None, quiet: bool = True):
     """Run the whole job on a DataFrame (or a data file) and return the :class:`Distillation`."""
     from .intake import load, prepare
     from .pipeline import Settings, distill
@@ -24,7 +24,8 @@ def fit(data: pd.DataFrame | str | os.PathLike, target: str, *, task: str = "aut
         table = prepare(data, target, task=task, categorical=categorical, ignore=ignore, source="<DataFrame>")
     else:
         table = load(data, target, task=task, categorical=categorical, ignore=ignore)
-    settings = Settings(trees=n_trees, tree_depth=tree_depth, seed=random_state, split=split, quiet=quiet)
+    settings = Settings(trees=n_trees, tree_depth=tree_depth, tree_leaves=tree_leaves, seed=random_state,
+                        split=split, quiet=quiet)
     return distill(table, settings)
 
 

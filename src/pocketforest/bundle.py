@@ -20,6 +20,7 @@ from .errors import InputError
 from .export.onnx_models import convert_pipeline, equation_model
 from .export.text import equation_text, tree_text
 from .export.tree_spec import tree_nodes
+from .export.tree_svg import fidelity_note, tree_svg
 from .reference import pick_rows, with_predictions
 
 
@@ -57,6 +58,8 @@ def build_files(r, created: str) -> tuple[dict[str, bytes], dict]:
     nodes = tree_nodes(r.tree.model, r.forest.columns, r.fills, task, counts)
     files["equation.txt"] = equation_text(r.equation, r.fills, r.kinds).encode()
     files["tree.txt"] = tree_text(nodes, task, r.table.target, classes).encode()
+    files["tree.svg"] = tree_svg(nodes, task, r.table.target, classes,
+                                 note=fidelity_note(r.fidelity["tree"], r.evaluation.get("on"))).encode()
     for name, text in _code_exports(r, nodes).items():
         files[name] = text.encode()
     rows = pick_rows(r.table.data, features, r.splits.test, r.settings.seed)
@@ -97,8 +100,7 @@ def _manifest(r, created: str, nodes) -> dict:
         "terms": [term.to_dict() for term in r.equation.terms],
         "formula": r.equation.formula,
         "equation": _equation_section(r.equation),
-        "tree": {"depth": r.tree.depth, "leaves": r.tree.leaves, "chosen_by": r.tree.chosen_by,
-                 "fidelity_by_depth": r.tree.fidelity_by_depth, "synthetic_rows": r.tree.synthetic_rows},
+        "tree": r.tree.to_dict(),
         "evaluation": r.evaluation,
         "fidelity": r.fidelity,
         "loss": r.loss,

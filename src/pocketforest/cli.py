@@ -10,7 +10,7 @@ from pathlib import Path
 
 from . import __version__
 from .errors import InputError
-from .defaults import LEAF_BUDGET, TREES
+from .defaults import LEAF_BUDGET, TREE_LEAVES, TREE_MARGIN, TREES
 
 DEMO_DATA = Path(__file__).resolve().parents[2] / "demo_data" / "greenhouse_trial.csv"
 DEMO_TARGET = "yield_kg"
@@ -36,8 +36,14 @@ def _distill_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--max-leaves", type=int, default=None, metavar="N",
                    help=f"most leaves per forest tree (default {LEAF_BUDGET:,} / trees, which keeps forest.onnx "
                         "near 16 MB and scoring memory bounded at any row count; 0 = no cap)")
-    p.add_argument("--tree-depth", type=int, help="surrogate depth (default: smallest reaching the fidelity target)")
-    p.add_argument("--fidelity-target", type=float, default=0.9, help="fidelity the default depth must reach")
+    p.add_argument("--tree-leaves", type=int, metavar="N",
+                   help=f"most leaves in the surrogate tree (default {TREE_LEAVES}, small enough to draw; "
+                        f"the size is the smallest within --tree-margin of the most faithful tree up to N)")
+    p.add_argument("--tree-margin", type=float, default=TREE_MARGIN, metavar="M",
+                   help=f"fidelity (R²) the chosen tree may give up against the best tree under the cap "
+                        f"(default {TREE_MARGIN}; 0 = the most faithful)")
+    p.add_argument("--tree-depth", type=int, metavar="D",
+                   help="grow the surrogate depth-first to depth D instead (with --tree-leaves: a depth limit)")
     p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
     p.add_argument("--split", default=None,
                    help="discovery,confirmation,test shares, e.g. 0.5,0.25,0.25 (default: that split from "
@@ -120,8 +126,10 @@ def _check_distill_options(args: argparse.Namespace) -> None:
         raise InputError(f"--max-leaves {args.max_leaves}: give 0 (no cap) or at least 2")
     if args.tree_depth is not None and args.tree_depth < 1:
         raise InputError(f"--tree-depth {args.tree_depth}: the surrogate tree needs a depth of at least 1")
-    if not 0.0 < args.fidelity_target <= 1.0:
-        raise InputError(f"--fidelity-target {args.fidelity_target}: give a share between 0 and 1, such as 0.9")
+    if args.tree_leaves is not None and args.tree_leaves < 2:
+        raise InputError(f"--tree-leaves {args.tree_leaves}: the surrogate tree needs at least 2 leaves")
+    if not 0.0 <= args.tree_margin < 1.0:
+        raise InputError(f"--tree-margin {args.tree_margin:g}: give a fidelity margin from 0 to below 1, such as 0.02")
 
 
 def _run_distill(data: str, target: str, args: argparse.Namespace) -> int:
@@ -147,8 +155,8 @@ def _run_distill(data: str, target: str, args: argparse.Namespace) -> int:
         if not args.quiet:
             print(f"warning: {note}", file=sys.stderr)
     settings = Settings(trees=args.trees, min_samples_leaf=args.leaf_size, max_leaves=args.max_leaves,
-                        tree_depth=args.tree_depth,
-                        target_fidelity=args.fidelity_target, seed=args.seed, split=fractions,
+                        tree_depth=args.tree_depth, tree_leaves=args.tree_leaves, tree_margin=args.tree_margin,
+                        seed=args.seed, split=fractions,
                         family=args.family, robust=args.robust, quiet=args.quiet,
                         synthetic_rows=args.synthetic_rows, cap_terms=not args.no_term_cap,
                         max_terms=args.max_terms, keep_vars=tuple(args.keep_var), drop_vars=tuple(args.drop_var))

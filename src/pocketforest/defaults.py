@@ -27,3 +27,13 @@ def leaf_cap(trees: int, n_classes: int | None = None) -> int:
     """
     share = max(1, (n_classes or 2) - 1)
     return max(2, LEAF_BUDGET // (max(1, trees) * share))
+
+#: The surrogate tree's default leaf cap: a tree a person can draw on a slide. Measured while
+#: planning (best-first trees fitted to the forest, held-out fidelity r²): Friedman #1 gives 0.75
+#: at 8 leaves, 0.80 at 12 and 0.87 at 32; the demo 0.53, 0.62 and 0.71 (docs/performance.md).
+TREE_LEAVES = 12
+#: The size rule's margin: the smallest tree whose confirmation-row fidelity is within this much
+#: (R², of values or of class probabilities) of the most faithful tree under the cap.
+TREE_MARGIN = 0.02
+#: The size/fidelity frontier runs from 2 leaves to this many (or to the cap, if larger).
+FRONTIER_LEAVES = 64

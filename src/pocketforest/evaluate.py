@@ -48,12 +48,24 @@ def metrics(y: np.ndarray, pred: np.ndarray, task: str, classes: list[str] | Non
 
 
 def fidelity(forest_pred: np.ndarray, tree_pred: np.ndarray, task: str) -> dict[str, float]:
-    """Regression: R² of tree against forest. Classification: label agreement and Cohen's kappa."""
+    """How closely a surrogate reproduces the forest on the same rows.
+
+    Regression: R² of the surrogate's predictions against the forest's. Classification:
+    ``probability_r2``, the R² of the class probabilities pooled over classes (scikit-learn's
+    variance-weighted R²: one minus the summed squared distance to the forest's probabilities
+    over the summed variance of those probabilities). It is the Brier distance to the forest
+    scaled by that of a constant tree, so a constant tree scores about 0 whatever the class
+    balance, and it is on the same scale as the regression R², so one size rule serves both
+    tasks. For two classes it equals the R² of the probability of either class. Label
+    ``agreement`` and Cohen's ``kappa`` are reported beside it; agreement alone favours a
+    constant tree on an imbalanced outcome.
+    """
     if task == "regression":
         return {"r2": float(r2_score(forest_pred, tree_pred))}
     a, b = np.argmax(forest_pred, axis=1), np.argmax(tree_pred, axis=1)
     kappa = cohen_kappa_score(a, b) if len(np.unique(np.concatenate([a, b]))) > 1 else 1.0
-    return {"agreement": float(np.mean(a == b)), "kappa": float(kappa)}
+    prob = r2_score(forest_pred, tree_pred, multioutput="variance_weighted")
+    return {"probability_r2": float(prob), "agreement": float(np.mean(a == b)), "kappa": float(kappa)}
 
 
 def _codes(y: np.ndarray, classes: list[str]) -> np.ndarray:

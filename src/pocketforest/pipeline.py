@@ -15,7 +15,7 @@ import numpy as np
 import pandas as pd
 
 from . import __version__
-from .defaults import TREES
+from .defaults import TREE_MARGIN, TREES
 from .design import fill_values, make_preprocessor, model_frame
 from .discovery import Discovery, Requests, discover
 from .equation import EquationFit, check_family, coefficient_budget, fit_equation, refit_for_scoring
@@ -36,7 +36,8 @@ class Settings:
     min_samples_leaf: int = 5
     max_leaves: int | None = None  # per tree; None = forest.leaf_cap (size budget), 0 = no cap
     tree_depth: int | None = None
-    target_fidelity: float = 0.9
+    tree_leaves: int | None = None   # leaf cap of the surrogate tree; None = TREE_LEAVES unless tree_depth is set
+    tree_margin: float = TREE_MARGIN  # size rule: smallest tree within this fidelity of the best under the cap
     seed: int = 0
     #: None: automatic (cross-validation below resample.SMALL_DATA_ROWS rows, else 0.5/0.25/0.25);
     #: a tuple forces that discovery / confirmation / test split.
@@ -195,10 +196,10 @@ def _fit_models(table: Table, s: Settings, fractions: tuple[float, float, float]
     clock.lap("equation")
 
     _say(s, "distilling the surrogate tree")
-    # without a test split (small-data plan) the depth curve is drawn on the confirmation rows
+    # without a test split (small-data plan) the held-out figures come from the cross-validation
     tree = distill_tree(forest, Xd, model_frame(conf, table.features),
-                        model_frame(test if len(test) else conf, table.features),
-                        depth=s.tree_depth, target_fidelity=s.target_fidelity, seed=s.seed,
+                        model_frame(test, table.features) if len(test) else None,
+                        leaves=s.tree_leaves, depth=s.tree_depth, margin=s.tree_margin, seed=s.seed,
                         min_leaf=s.min_samples_leaf, n_synthetic=s.synthetic_rows)
     clock.lap("tree")
 

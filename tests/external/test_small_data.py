@@ -74,7 +74,7 @@ def _common(manifest, k):
         assert lo["metric"] == "accuracy" and lo["resamples"] >= 1000
         assert lo["ci_low"] <= lo["value"] <= lo["ci_high"]
     assert set(manifest["evaluation"]["forest"]) >= {"accuracy", "auc", "log_loss", "brier"}
-    assert set(manifest["fidelity"]["tree"]) == {"agreement", "kappa"}
+    assert set(manifest["fidelity"]["tree"]) == {"probability_r2", "agreement", "kappa"}
     assert manifest["classes"] == sorted(manifest["classes"]) and len(manifest["classes"]) == k
 
 

@@ -9,7 +9,7 @@ from dataclasses import asdict
 from pathlib import Path
 
 from ..errors import InputError
-from . import anchor, honest, power, speed
+from . import anchor, honest, power, speed, tree
 from .common import machine
 
 #: Every section as (name, flag, module, help). flag None: always runs. A new section is a new
@@ -19,6 +19,7 @@ SECTIONS = [
     ("honest", None, honest, "null rejection and loss-interval coverage"),
     ("anchor", "--anchor", anchor, "the equation against hand-built GLMs on public tables (issue 12)"),
     ("power", "--power", power, "planted-truth recovery and noise by size (issue 11)"),
+    ("tree", "--tree", tree, "surrogate tree fidelity: greedy vs search, synthetic rows, default size"),
 ]
 #: A section may also offer ``add_arguments(parser)`` (its own options) and ``options(args) ->
 #: dict`` (keyword arguments for its ``run``; raises InputError on a bad value).

@@ -44,8 +44,11 @@ def _leaf_text(node: TreeNode, task: str, classes: list[str] | None) -> str:
 
 
 def tree_text(nodes: list[TreeNode], task: str, target: str, classes: list[str] | None) -> str:
-    """Indented if/else rules with the discovery rows reaching each node."""
-    lines = [f"# Surrogate tree for {target}: rules read top to bottom; n = discovery rows reaching the node.",
+    """Indented if/else rules with the discovery rows reaching each node: one line per leaf and
+    two per split, under a three-line heading."""
+    leaves = sum(n.is_leaf for n in nodes)
+    lines = [f"# Surrogate tree for {target}, {leaves} leaves: rules read top to bottom; "
+             "n = discovery rows reaching the node.",
              "# A missing number takes the value noted at its split; a missing category is the level '(missing)'.", ""]
 
     def walk(i: int, depth: int) -> None:

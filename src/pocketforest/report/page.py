@@ -39,7 +39,7 @@ CAUTIONS = [
 SECTIONS = [("data", "Data and splits"), ("scoreboard", "How good is each model"),
             ("importance", "Which variables matter"), ("shapes", "Shapes: forest and equation"),
             ("interactions", "Interactions"), ("equation", "The equation"), ("tree", "The surrogate tree"),
-            ("fidelity-by-depth", "Fidelity by depth"), ("elsewhere", "Scoring the bundle elsewhere"),
+            ("tree-size", "Tree size and fidelity"), ("elsewhere", "Scoring the bundle elsewhere"),
             ("cautions", "Cautions")]
 
 _STYLE = """
@@ -141,7 +141,7 @@ def _data(r, m: dict) -> str:
              f"Target <code>{_e(m['target'])}</code>, a {_e(m['task'])} task"
              + (f" with classes {', '.join(_e(c) for c in m['classes'])}" if m.get("classes") else "") + ".</p>"]
     roles = {"discovery": "fits the forest, ranks variables, chooses the terms, grows the tree",
-             "confirmation": "estimates and tests the equation; picks the tree depth",
+             "confirmation": "estimates and tests the equation; picks the tree size",
              "test": "judges every model: nothing was fitted on these rows"}
     total = sum(m["splits"].values())
     parts.append(_table(["part", "rows", "share", "what it is used for"],
@@ -364,30 +364,63 @@ def _tree_nodes(r):
 
 
 def _tree(r, m: dict) -> str:
-    nodes = _tree_nodes(r)
+    import re
+    from ..export.tree_svg import fidelity_note, tree_svg
     t = m["tree"]
-    fig = plots.tree_plot(nodes, m["task"], m.get("classes"))
-    deeper = t["depth"] > 4
-    what = "its prediction" if m["task"] == "regression" else "its most likely class and that class's probability"
-    caption = (f"Depth {t['depth']}, {t['leaves']} leaves, grown on the discovery rows labelled by the forest "
-               f"(Craven &amp; Shavlik 1996). Each box gives the number of discovery rows reaching it; a leaf shows "
-               f"{what}. Follow ✓ when the box's condition holds, ✗ when it does not. A missing number takes its median before "
-               "the comparison; an unseen category takes ✗."
-               + (" Below level 4 each subtree is folded into one box marked ⋯ (its average); "
-                  "<code>tree.txt</code> holds the whole tree." if deeper else ""))
-    return (_figure(fig, caption) + f"<p>Depth chosen: {_e(t.get('chosen_by', ''))}.</p>")
+    svg = tree_svg(_tree_nodes(r), m["task"], m["target"], m.get("classes"),
+                   note=fidelity_note(m["fidelity"]["tree"], m["evaluation"].get("on")))
+    svg = re.sub(r'\s+xmlns="[^"]*"', "", svg, count=1)   # inline in HTML5: no namespace address needed
+    caption = (f"The whole tree: depth {t['depth']}, {t['leaves']} leaves, grown on the discovery rows labelled by "
+               "the forest (Craven &amp; Shavlik 1996). The same drawing is <code>tree.svg</code>; the same rules "
+               "are <code>tree.txt</code>, <code>tree.onnx</code> and the tree's code exports.")
+    chosen = t.get("chosen_by") or {}
+    text = chosen.get("text", "") if isinstance(chosen, dict) else str(chosen)
+    return _figure(svg, caption) + f"<p>Size chosen: {_e(text)}.</p>"
 
 
-def _fidelity(r, m: dict) -> str:
-    curve = m["tree"].get("fidelity_by_depth") or []
-    if not curve:
-        return _absent("Fidelity by depth was not recorded in this bundle.")
-    target = getattr(getattr(r, "settings", None), "target_fidelity", None)
-    fig = plots.fidelity_plot(curve, m["tree"]["depth"], target)
-    keys = [k for k in curve[0] if k != "depth"]
-    table = _table(["depth"] + [k.replace("_", " ") for k in keys], [[d["depth"]] + [d.get(k) for k in keys] for d in curve])
-    return _figure(fig, "How closely a tree of each depth reproduces the forest. A deeper tree is more faithful "
-                   "and harder to read; the grey line is the fidelity the default depth must reach.") + table
+#: Sizes listed in the frontier table (the chosen size and the cap are added).
+_FRONTIER_ROWS = (2, 3, 4, 6, 8, 10, 12, 16, 24, 32, 48, 64)
+
+
+def _tree_size(r, m: dict) -> str:
+    t = m["tree"]
+    frontier = t.get("frontier") or []
+    if not frontier:
+        return _absent("No size/fidelity frontier was recorded in this bundle (the tree has a single leaf).")
+    chosen = t.get("chosen_by") or {}
+    key = chosen.get("measure") or ("r2" if m["task"] == "regression" else "probability_r2")
+    fig = plots.frontier_plot(frontier, key, t["leaves"], chosen.get("cap"), chosen.get("margin"),
+                              t.get("frontier_held_out"))
+    names = {"r2": "R²", "probability_r2": "R² of class probabilities", "agreement": "agreement", "kappa": "kappa"}
+    keys = list(frontier[0]["confirmation"])
+    held = t.get("frontier_held_out")
+    where = "test rows" if held == "test" else (held or "")
+    show = set(_FRONTIER_ROWS) | {t["leaves"]} | ({chosen["cap"]} if chosen.get("cap") else set())
+    head = ["leaves", "depth", f"{names[key]}, confirmation"] + ([f"{names.get(k, k)}, {where}" for k in keys] if held else [])
+    rows = [[row["leaves"], row["depth"], row["confirmation"][key]]
+            + ([row["held_out"].get(k) for k in keys] if held and row.get("held_out") else [])
+            + (["← chosen"] if row["leaves"] == t["leaves"] else [""])
+            for row in frontier if row["leaves"] in show]
+    head.append("")
+    rule = ("The size rule: among trees grown best-first (the split that most improves fidelity goes first) "
+            "with at most the cap of leaves, take the smallest whose fidelity on the confirmation rows is within "
+            "the margin of the most faithful; the forest labels those rows, so no outcome is used. A bigger, more "
+            "faithful tree is one option away: <code>--tree-leaves 32</code> or <code>--tree-leaves 64</code>."
+            if chosen.get("rule") == "frontier" else
+            "This tree's size was set with <code>--tree-depth</code>; the frontier below shows what a best-first "
+            "tree of each size would give.")
+    if key == "probability_r2":
+        rule += (" For classes, fidelity is the R² of the forest's class probabilities (pooled over classes): a "
+                 "constant tree scores about 0 however unbalanced the classes, where label agreement would already "
+                 "give it the majority share.")
+    parts = [_figure(fig, "How closely a tree of each size reproduces the forest. Bigger trees are more faithful "
+                     "and harder to read."), f"<p>{rule}</p>", _table(head, rows)]
+    curve = t.get("fidelity_by_depth") or []
+    if curve and curve[0].get("held_out"):
+        parts.append("<h3>Trees grown depth-first to a fixed depth (<code>--tree-depth</code>)</h3>")
+        parts.append(_table(["depth", "leaves", f"{names[key]}, {where}"],
+                            [[d["depth"], d["leaves"], d["held_out"].get(key)] for d in curve]))
+    return "".join(parts)
 
 
 def _example_row(m: dict) -> dict:
@@ -477,7 +510,7 @@ def render_report(r, m: dict, files: set[str] | dict | None = None) -> str:
         "data": lambda: _data(r, m), "scoreboard": lambda: _scoreboard(m), "importance": lambda: _importance(m),
         "shapes": lambda: _shapes(r, m), "interactions": lambda: _interactions(m),
         "equation": lambda: _equation(r, m, names), "tree": lambda: _tree(r, m),
-        "fidelity-by-depth": lambda: _fidelity(r, m), "elsewhere": lambda: _elsewhere(m, names),
+        "tree-size": lambda: _tree_size(r, m), "elsewhere": lambda: _elsewhere(m, names),
         "cautions": _cautions,
     }
     body = [_section(i + 1, key, title, _build(key, builders[key])) for i, (key, title) in enumerate(SECTIONS)]

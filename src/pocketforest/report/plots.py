@@ -16,17 +16,9 @@ import matplotlib
 matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
-from matplotlib.patches import FancyBboxPatch  # noqa: E402
 
-# Our palette: parchment page, deep green for the forest, ochre for the tree, slate for the equation.
-INK = "#1d2a22"
-GRID = "#d9d4c0"
-FOREST = "#3f6a35"
-TREE = "#b07a1e"
-EQUATION = "#3d5f86"
-LOSS = "#9c3f22"
-MODEL_COLOURS = {"forest": FOREST, "tree": TREE, "equation": EQUATION}
-CLASS_COLOURS = ["#3f6a35", "#b07a1e", "#3d5f86", "#8a4f7d", "#9c3f22", "#5c8a8a", "#6b6b3a", "#a0674b"]
+from ..palette import (CLASS_COLOURS, EQUATION, FOREST, GRID, INK, LOSS, MODEL_COLOURS,  # noqa: E402,F401
+                       TREE)
 
 _RC = {
     "svg.fonttype": "none", "svg.hashsalt": "pocketforest", "font.size": 8.5,
@@ -110,36 +102,39 @@ def importance_plot(importance: list[dict], metric: str, top: int = 20) -> str:
     return to_svg(fig, "permutation importance with error bars")
 
 
-def fidelity_plot(curve: list[dict], chosen: int, target: float | None) -> str:
-    """Every numeric series of ``fidelity_by_depth`` against depth, chosen depth marked."""
-    fig, ax = figure(5.2, 2.4, left=0.6, bottom=0.42)
+def frontier_plot(frontier: list[dict], key: str, chosen: int, cap: int | None, margin: float | None,
+                  held_out_on: str | None) -> str:
+    """Fidelity against leaves (log scale) on the confirmation rows, which chose the size, and
+    on the held-out rows; the band is the margin below the best tree under the cap."""
+    fig, ax = figure(5.6, 2.6, left=0.62, bottom=0.45)
     _setup(ax)
-    depths = [c["depth"] for c in curve]
-    keys = [k for k in curve[0] if k != "depth" and all(isinstance(c.get(k), (int, float)) for c in curve)]
-    styles = itertools.cycle([(TREE, "-", "o"), (FOREST, "--", "s"), (EQUATION, ":", "^"), (LOSS, "-.", "d")])
-    for k, (colour, ls, mk) in zip(keys, styles):
-        ax.plot(depths, [c[k] for c in curve], ls=ls, marker=mk, color=colour, lw=1.4, ms=3.5,
-                label=_series_label(k))
-    ax.axvline(chosen, color=INK, lw=0.8, ls=(0, (2, 2)))
-    right = chosen == max(depths)
-    ax.annotate(f"chosen depth {chosen}", (chosen, 0.5), xycoords=("data", "axes fraction"),
-                xytext=(-4 if right else 4, 0), textcoords="offset points", rotation=90, va="center",
-                ha="right" if right else "left", fontsize=7.5, color=INK)
-    if target is not None:
-        ax.axhline(target, color=GRID, lw=1.2, zorder=0)
-    ax.set_xticks(depths)
-    ax.set_xlabel("tree depth")
-    ax.set_ylabel("fidelity to the forest")
-    ax.legend(frameon=False, fontsize=7.5, loc="best")
-    return to_svg(fig, "fidelity of the surrogate tree by depth")
-
-
-def _series_label(key: str) -> str:
-    if key.startswith("confirmation_"):
-        return key.removeprefix("confirmation_").replace("_", " ") + " (confirmation rows)"
-    if key.startswith("test_"):
-        return key.removeprefix("test_").replace("_", " ") + " (test rows)"
-    return key.replace("_", " ") + " (test rows)"
+    leaves = [row["leaves"] for row in frontier]
+    conf = [row["confirmation"][key] for row in frontier]
+    ax.plot(leaves, conf, color=FOREST, lw=1.3, ls=(0, (4, 2)), label="confirmation rows (chose the size)")
+    held = [(row["leaves"], row["held_out"][key]) for row in frontier if row.get("held_out")]
+    if held:
+        label = "test rows" if held_out_on == "test" else f"held out ({held_out_on})"
+        ax.plot([h[0] for h in held], [h[1] for h in held], color=TREE, lw=1.8, label=label)
+    if cap is not None and margin is not None:
+        best = max((c for k, c in zip(leaves, conf) if k <= cap), default=None)
+        if best is not None:
+            ax.fill_between([min(leaves), cap], best - margin, best, color=GRID, alpha=0.7, lw=0, zorder=0,
+                            label=f"within {margin:g} of the best up to {cap} leaves")
+        ax.axvline(cap, color=INK, lw=0.7, ls=":")
+    ax.axvline(chosen, color=INK, lw=0.9, ls=(0, (2, 2)))
+    at = dict(zip(leaves, conf))
+    if chosen in at:
+        ax.plot([chosen], [at[chosen]], "o", color=FOREST, ms=5.5, mec="white", mew=0.8, zorder=5)
+    ax.annotate(f"chosen: {chosen} leaves", (chosen, 0.04), xycoords=("data", "axes fraction"),
+                xytext=(4, 0), textcoords="offset points", fontsize=7.5, color=INK)
+    ax.set_xscale("log", base=2)
+    ticks = [k for k in (2, 4, 8, 16, 32, 64, 128, 256) if min(leaves) <= k <= max(leaves)]
+    ax.set_xticks(ticks, [str(k) for k in ticks])
+    ax.minorticks_off()
+    ax.set_xlabel("leaves in the tree")
+    ax.set_ylabel("fidelity: " + ("R²" if key == "r2" else "R² of class probabilities"))
+    ax.legend(frameon=False, fontsize=7, loc="upper left")
+    return to_svg(fig, "fidelity of the surrogate tree against its number of leaves")
 
 
 # ---------------------------------------------------------------- shapes and interactions
@@ -223,83 +218,6 @@ def interaction_plot(interactions: list[dict]) -> str:
     cb.set_label("H²")
     cb.outline.set_linewidth(0.5)
     return to_svg(fig, "interaction strength between pairs of variables")
-
-
-# ---------------------------------------------------------------- the surrogate tree
-
-def tree_plot(nodes, task: str, classes: list[str] | None, max_depth: int = 4) -> str:
-    """The tree drawn top-down; below ``max_depth`` a subtree is one box with its row count."""
-    by_id = {n.id: n for n in nodes}
-    depth_of = {0: 0}
-    for n in nodes:  # scikit-learn numbers parents before children
-        if not n.is_leaf:
-            depth_of[n.left] = depth_of[n.right] = depth_of[n.id] + 1
-    shown_leaf = lambda n: n.is_leaf or depth_of[n.id] >= max_depth  # noqa: E731
-    pos: dict[int, tuple[float, float]] = {}
-    order = itertools.count()
-
-    def place(i: int) -> float:
-        n = by_id[i]
-        if shown_leaf(n):
-            x = float(next(order))
-        else:
-            x = (place(n.left) + place(n.right)) / 2.0
-        pos[i] = (x, -depth_of[i])
-        return x
-
-    place(0)
-    n_leaves = next(order)
-    levels = max(depth_of[i] for i in pos) + 1
-    w = min(12.0, max(4.5, 0.8 * n_leaves))
-    fig, ax = figure(w, 0.3 + 0.95 * levels, left=0.05, bottom=0.05, right=0.05, top=0.05)
-    ax.axis("off")
-    ax.grid(False)
-    values = [by_id[i].value[0] for i in pos if shown_leaf(by_id[i])] if task == "regression" else None
-    vmin, vmax = (min(values), max(values)) if values else (0.0, 1.0)
-    cmap = matplotlib.colors.LinearSegmentedColormap.from_list("leaf", ["#f3ecd2", "#a9bf7e", FOREST])
-    fs = 7.0
-    for i, (x, y) in pos.items():
-        n = by_id[i]
-        if not shown_leaf(n):
-            for child, yes in ((n.left, n.level is None), (n.right, n.level is not None)):
-                cx, cy = pos[child]
-                ax.plot([x, cx], [y - 0.27, cy + 0.27], color="#8b8570", lw=0.8, zorder=1)
-                y0, y1 = y - 0.27, cy + 0.27
-                ax.text(x + 0.55 * (cx - x), y0 + 0.55 * (y1 - y0), "✓" if yes else "✗", ha="center", va="center",
-                        fontsize=fs + 3, fontweight="bold", color=FOREST if yes else LOSS,
-                        bbox=dict(boxstyle="round,pad=0.1", fc="#fbfaf5", ec="none"), zorder=2)
-    for i, (x, y) in pos.items():
-        n = by_id[i]
-        face = "#ece8d8"
-        if shown_leaf(n):
-            text, face = _leaf_text(n, task, classes, cut=not n.is_leaf)
-            if task == "regression":
-                face = cmap((n.value[0] - vmin) / (vmax - vmin) if vmax > vmin else 0.5)
-        else:
-            text = f"{_condition(n)}\n{n.samples} rows"
-        box = FancyBboxPatch((x - 0.46, y - 0.27), 0.92, 0.54, boxstyle="round,pad=0.02,rounding_size=0.06",
-                             fc=face, ec="#6f6a58", lw=0.7, zorder=3)
-        ax.add_patch(box)
-        dark = task == "regression" and shown_leaf(n) and vmax > vmin and (n.value[0] - vmin) / (vmax - vmin) > 0.7
-        ax.text(x, y, text, ha="center", va="center", fontsize=fs, color="white" if dark else INK, zorder=4)
-    ax.set_xlim(-0.5, n_leaves - 0.5)
-    ax.set_ylim(-levels + 0.68, 0.32)
-    return to_svg(fig, "the surrogate tree")
-
-
-def _condition(n) -> str:
-    if n.level is not None:
-        return f"{_short(n.feature, 14)}\n= {_short(n.level if n.level else '(missing)', 12)}?"
-    return f"{_short(n.feature, 14)}\n≤ {n.threshold:.4g}?"
-
-
-def _leaf_text(n, task: str, classes, cut: bool) -> tuple[str, str]:
-    head = "⋯ " if cut else ""
-    if task == "regression":
-        return f"{head}{n.value[0]:.4g}\n{n.samples} rows", "#ece8d8"
-    k = int(np.argmax(n.value))
-    colour = matplotlib.colors.to_rgba(CLASS_COLOURS[k % len(CLASS_COLOURS)], 0.25 + 0.55 * float(n.value[k]))
-    return f"{head}{_short(str(classes[k]), 12)} {n.value[k]:.0%}\n{n.samples} rows", colour
 
 
 def _short(text: str, n: int) -> str:
