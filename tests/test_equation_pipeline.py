@@ -38,7 +38,8 @@ def test_poisson_equation_end_to_end_passes_verify(tmp_path):
 def test_equation_sees_only_the_confirmation_rows():
     df = _counts(seed=1)
     result = distill(prepare(df, "events", task="regression"),
-                     Settings(trees=20, seed=4, quiet=True, bootstrap=100, family="gaussian"))
+                     Settings(trees=20, seed=4, quiet=True, bootstrap=100, family="gaussian",
+                              split=(0.5, 0.25, 0.25)))
     eq = result.equation.inference           # the table for the paper
     assert eq.fit_on == "confirmation" and eq.n == len(result.splits.confirmation)
     conf = df.iloc[result.splits.confirmation].reset_index(drop=True)

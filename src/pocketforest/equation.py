@@ -265,6 +265,14 @@ def fit_equation(terms: list[Term], data: pd.DataFrame, y: np.ndarray, *, task: 
                    + ", ".join(_describe(t) for t in dropped) + ".")
             notes.append(msg)
             warn.append(msg)
+    terms, aliased = _estimable_terms(terms, frame, fills, kinds)
+    if aliased:
+        msg = (f"{len(aliased)} term(s) are exact linear combinations of earlier ones on the {fit_on} rows "
+               "(their coefficients cannot be told apart) and were left out: "
+               + ", ".join(_describe(t) for t in aliased) + ".")
+        notes.append(msg)
+        warn.append(msg)
+        dropped = dropped + aliased
     cols = design_columns(terms, fills, kinds)
     form = formula(target, terms, fills, kinds)
     X = np.column_stack([np.ones(len(frame))] + [evaluate(c.node, frame) for c in cols])
@@ -349,6 +357,29 @@ def fit_equation(terms: list[Term], data: pd.DataFrame, y: np.ndarray, *, task: 
                         "meaning (data splitting, Cox 1975). Tested on the rows that chose the terms they would "
                         "be too small (Berk et al. 2013).")
     return eq
+
+
+def _estimable_terms(terms: list[Term], frame: pd.DataFrame, fills: dict, kinds: dict) -> tuple[list[Term], list[Term]]:
+    """Terms in order, leaving out any whose columns add nothing to the rank of those before it
+    (a level that coincides with another column on these rows, say), and any term that needs a
+    term left out (hierarchy). No fit, penalised or not, can estimate aliased columns."""
+    kept: list[Term] = []
+    left: list[Term] = []
+    X = np.ones((len(frame), 1))
+    rank = 1
+    for t in terms:
+        if any(_key(m) in {_key(x) for x in left} for m in [Term(k[0], list(k[1])) for k in _main_of(t, kinds)]):
+            left.append(t)
+            continue
+        block = [evaluate(c.node, frame) for c in term_columns(0, t, fills, kinds)]
+        trial = np.column_stack([X] + block)
+        r = np.linalg.matrix_rank(trial)
+        if r < rank + len(block):
+            left.append(t)
+            continue
+        kept.append(t)
+        X, rank = trial, r
+    return kept, left
 
 
 def _runaway(result, X: np.ndarray) -> bool:
@@ -492,7 +523,18 @@ def refit_for_scoring(inference: EquationFit, data: pd.DataFrame, y: np.ndarray,
     need = (X.shape[1] - 1) * k1
     supported = supported_coefficients(len(X), anticipated_r2) if anticipated_r2 is not None else np.inf
     tuning: dict = {"rows": int(len(X)), "coefficients": int(need), "supported_at_shrinkage_0.9": float(supported)}
-    notes = []
+    try:
+        coef, method = _refit(eq, X, y, need, supported, tuning)
+    except (np.linalg.LinAlgError, ValueError):
+        coef, method = np.full(eq.coef.shape, np.nan), "failed"
+    return _scoring_fit(eq, inference, coef, method, tuning, fit_on, len(X))
+
+
+def _refit(eq: EquationFit, X: np.ndarray, y: np.ndarray, need: int, supported: float,
+           tuning: dict) -> tuple[np.ndarray, str]:
+    family = eq.family
+    logit = family in ("binomial", "multinomial")
+    k1 = len(eq.classes) - 1 if logit else 1
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         if family == "gaussian":
@@ -508,7 +550,7 @@ def refit_for_scoring(inference: EquationFit, data: pd.DataFrame, y: np.ndarray,
             codes = _response(y, eq.task, eq.classes).astype(int)
             separated = len(X) * k1 <= LP_MAX_ROWS and is_separated(X, codes, len(eq.classes))
             if separated or need > supported:
-                coef = firth_fit(X, codes, len(eq.classes)).params
+                coef = _firth_or_nan(X, codes, len(eq.classes))
                 method = "Firth penalised likelihood"
                 tuning["reason"] = "separated classes" if separated else "more coefficients than the rows support"
             else:
@@ -517,7 +559,7 @@ def refit_for_scoring(inference: EquationFit, data: pd.DataFrame, y: np.ndarray,
                 coef = np.asarray(res.params)
                 method = "maximum likelihood"
                 if _runaway(res, X):
-                    coef = firth_fit(X, codes, len(eq.classes)).params
+                    coef = _firth_or_nan(X, codes, len(eq.classes))
                     method = "Firth penalised likelihood"
                     tuning["reason"] = "the ordinary fit ran off to infinity"
         else:
@@ -530,7 +572,12 @@ def refit_for_scoring(inference: EquationFit, data: pd.DataFrame, y: np.ndarray,
                 fam = sm.families.Poisson()
             coef = np.asarray(sm.GLM(yv, X, family=fam).fit().params)
             method = "maximum likelihood"
-    coef = np.asarray(coef, dtype=float).reshape(eq.coef.shape)
+    return np.asarray(coef, dtype=float).reshape(eq.coef.shape), method
+
+
+def _scoring_fit(eq: EquationFit, inference: EquationFit, coef: np.ndarray, method: str, tuning: dict,
+                 fit_on: str, n: int) -> EquationFit:
+    notes = []
     if not np.all(np.isfinite(coef)):
         # never export a broken refit: keep the confirmation estimates and say so
         notes.append(f"The refit on the {fit_on} rows did not give finite estimates; the confirmation-row "
@@ -543,9 +590,18 @@ def refit_for_scoring(inference: EquationFit, data: pd.DataFrame, y: np.ndarray,
     else:
         table = [{"term": labels[j], "estimate": float(coef[j])} for j in range(len(labels))]
     tuning["method"] = method
-    return dataclasses.replace(eq, coef=coef, table=table, fit_on=fit_on, n=int(len(X)), method=method,
+    return dataclasses.replace(eq, coef=coef, table=table, fit_on=fit_on, n=int(n), method=method,
                                inference=inference, tuning=tuning, summary_text="",
                                notes=list(eq.notes) + notes)
+
+
+def _firth_or_nan(X: np.ndarray, codes: np.ndarray, k: int) -> np.ndarray:
+    """Firth's estimates, or NaN (the caller then keeps the confirmation estimates) when the
+    information matrix is singular on these rows."""
+    try:
+        return firth_fit(X, codes, k).params
+    except np.linalg.LinAlgError:
+        return np.full((X.shape[1],) if k == 2 else (X.shape[1], k - 1), np.nan)
 
 
 def _ridge(X: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, dict]:
