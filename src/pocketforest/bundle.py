@@ -19,6 +19,8 @@ from .scoring.bundle_io import FORMAT, FORMAT_VERSION, sha256
 from .errors import InputError
 from .export.onnx_models import convert_pipeline, equation_model
 from .export.text import equation_text, tree_text
+from .export.breakdown import labels as contribution_labels
+from .export.spss import spss_names
 from .export.tree_spec import tree_nodes
 from .export.tree_svg import fidelity_note, tree_svg
 from .reference import pick_rows, with_predictions
@@ -66,6 +68,7 @@ def build_files(r, created: str) -> tuple[dict[str, bytes], dict]:
     ref = with_predictions(rows, r.predict, task, classes)
     files["reference.csv"] = ref.to_csv(index=False, float_format=None, lineterminator="\n").encode()
     manifest = _manifest(r, created, nodes)
+    files.update(_collaborator_exports(r, nodes, manifest, rows, created))
     return files, manifest
 
 
@@ -78,16 +81,26 @@ def _code_exports(r, nodes) -> dict[str, str]:
     return code.all_exports(r, nodes)
 
 
+def _collaborator_exports(r, nodes, manifest: dict, rows, created: str) -> dict[str, bytes]:
+    """R, SPSS syntax, the workbook and the calculator page (see :mod:`export.code`)."""
+    from .export import code
+    from .report import CAUTIONS
+    return code.collaborator_exports(r.equation, nodes, code.export_meta(r.table.target, r.table.task, r.classes),
+                                     r.table.features, manifest["features"], rows, created, CAUTIONS)
+
+
 def _manifest(r, created: str, nodes) -> dict:
     t = r.table
     classes = r.classes
+    spss = spss_names([f.name for f in t.features])
     m = {
         "format": FORMAT, "format_version": FORMAT_VERSION, "tool_version": __version__,
         "created": created, "seed": r.settings.seed, "task": t.task, "target": t.target,
         "source": {"file": os.path.basename(t.source), "rows_used": int(len(t.data)),
                    "rows_dropped_missing_target": int(t.rows_dropped_missing_target),
                    "dropped_columns": dict(t.dropped_columns)},
-        "features": [{**f.to_dict(), "fill": r.fills[f.name], **_training_profile(f, t.data.iloc[r.splits.discovery]),
+        "features": [{**f.to_dict(), "fill": r.fills[f.name], "spss_name": spss[f.name],
+                      **_training_profile(f, t.data.iloc[r.splits.discovery]),
                       **_term_domain(f.name, r.equation.terms)}
                      for f in t.features],
         "splits": r.splits.sizes(),
@@ -100,7 +113,7 @@ def _manifest(r, created: str, nodes) -> dict:
         "terms": [term.to_dict() for term in r.equation.terms],
         "formula": r.equation.formula,
         "equation": _equation_section(r.equation),
-        "tree": r.tree.to_dict(),
+        "tree": {**r.tree.to_dict(), "nodes": [_node_dict(n) for n in nodes]},
         "evaluation": r.evaluation,
         "fidelity": r.fidelity,
         "loss": r.loss,
@@ -119,7 +132,8 @@ def _equation_section(eq) -> dict:
     paper = eq.inference or eq
     out = {"family": eq.family, "link": eq.link, "fit_on": paper.fit_on, "n": paper.n,
            "coefficients": paper.table, "block_test": paper.block_test, "method": paper.method,
-           "note": eq.note, "dropped_terms": [t.to_dict() for t in paper.dropped_terms]}
+           "note": eq.note, "dropped_terms": [t.to_dict() for t in paper.dropped_terms],
+           "contribution_labels": contribution_labels(eq)}
     out["scoring"] = {"fit_on": eq.fit_on, "n": eq.n, "method": eq.method, "tuning": eq.tuning,
                       "coefficients": [{"term": c["term"], "estimate": c["estimate"],
                                         **({"class": c["class"]} if "class" in c else {})} for c in eq.table],
@@ -132,6 +146,17 @@ def _term_domain(name: str, terms) -> dict:
     counts the input as outside the training envelope, like a value beyond the observed range."""
     floors = [float(t.params["floor"]) for t in terms if t.kind == "log" and t.variables == [name]]
     return {"term_domain_min": max(floors)} if floors else {}
+
+
+def _node_dict(node) -> dict:
+    """A tree node as the manifest keeps it, so scoring can tell the path a row took without
+    the fitting libraries: a numeric split sends float32(x) <= threshold left (a missing x takes
+    fill), a categorical split sends x == level right; a leaf has no feature."""
+    d = {"id": node.id, "samples": node.samples, "value": node.value}
+    if not node.is_leaf:
+        d.update({"feature": node.feature, "left": node.left, "right": node.right})
+        d.update({"threshold": node.threshold, "fill": node.fill} if node.level is None else {"level": node.level})
+    return d
 
 
 def _training_profile(f, rows) -> dict:

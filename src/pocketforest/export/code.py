@@ -1,19 +1,26 @@
 """All code exports of a distillation, printed from the one term model and the one tree.
 
-``bundle.py`` calls :func:`all_exports`; each printer lives in its own module (SQL, Python,
-JavaScript, LaTeX) and walks the same expression trees and tree nodes.
+``bundle.py`` calls :func:`all_exports` and :func:`collaborator_exports`; each printer lives in
+its own module (SQL, Python, JavaScript, LaTeX, R, SPSS syntax, the workbook, the calculator page)
+and walks the same expression trees and tree nodes.
 """
 from __future__ import annotations
 
 from .. import __version__
+from .calculator import calculator_html
 from .jscode import equation_js, tree_js
 from .latex import equation_tex
 from .pycode import equation_py, tree_py
+from .rcode import equation_r, tree_r
+from .spss import equation_sps
 from .sql import equation_sql, tree_sql
 from .tree_spec import TreeNode
+from .workbook import equation_workbook
 
+#: Files for the people who receive the equation: R, SPSS syntax, a workbook, a page.
+COLLABORATOR_FILES = ("equation.R", "tree.R", "equation.sps", "equation.xlsx", "calculator.html")
 #: Every file this module writes, in the order verify checks them.
-FILES = ("equation.tex", "equation.sql", "equation.py", "equation.js", "tree.sql", "tree.py", "tree.js")
+FILES = ("equation.tex", "equation.sql", "equation.py", "equation.js", "tree.sql", "tree.py", "tree.js") + COLLABORATOR_FILES
 
 
 def export_meta(target: str, task: str, classes: list[str] | None) -> dict:
@@ -30,3 +37,14 @@ def code_exports(eq, nodes: list[TreeNode], meta: dict) -> dict[str, str]:
 
 def all_exports(r, nodes: list[TreeNode]) -> dict[str, str]:
     return code_exports(r.equation, nodes, export_meta(r.table.target, r.table.task, r.classes))
+
+
+def collaborator_exports(eq, nodes: list[TreeNode], meta: dict, features: list, manifest_features: list[dict],
+                         rows, created: str | None = None, cautions: list[str] = ()) -> dict[str, bytes]:
+    """File name → bytes of the collaborators' forms. ``features``: the data's features;
+    ``manifest_features``: their manifest entries (ranges, levels, fills); ``rows``: the reference
+    input rows the workbook starts with."""
+    return {"equation.R": equation_r(eq, meta).encode(), "tree.R": tree_r(nodes, meta).encode(),
+            "equation.sps": equation_sps(eq, meta, features).encode(),
+            "equation.xlsx": equation_workbook(eq, meta, features, rows, created, cautions),
+            "calculator.html": calculator_html(eq, nodes, meta, manifest_features, cautions).encode()}

@@ -58,6 +58,10 @@ class Inputs:
             self.refs[key] = InputRef(f"c{len(self.refs)}", feature, "categorical")
         return self.prefix + self.refs[key].var
 
+    def level(self, feature: str, level: str, d: "Dialect") -> str:
+        """"feature equals level" as 1.0 / 0.0; a target that codes levels overrides this."""
+        return d.is_level(self.categorical(feature), d.text(level))
+
     def __iter__(self):
         return iter(self.refs.values())
 
@@ -74,7 +78,7 @@ def print_expr(node: Node, d: Dialect, inputs: Inputs) -> str:
     if isinstance(node, Num):
         return inputs.numeric(node.feature, node.fill)
     if isinstance(node, Is):
-        return d.is_level(inputs.categorical(node.feature), d.text(node.level))
+        return inputs.level(node.feature, node.level, d)
     if isinstance(node, Const):
         return d.number(node.value)
     if isinstance(node, Sub):

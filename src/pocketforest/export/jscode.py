@@ -1,8 +1,9 @@
 """JavaScript exports of the equation and the tree: plain JavaScript, ``predict(row)``.
 
 Runs in Node.js and browsers; sets ``module.exports = { predict }`` when ``module`` exists. Every
-name, level and label is a JSON string literal with non-ASCII characters escaped and ``</`` written
-as ``<\\/`` so the file can also sit inside an HTML ``<script>`` element.
+name, level and label is a JSON string literal with non-ASCII characters escaped and every ``<``
+written as ``\\u003c``, so the file can also sit inside an HTML ``<script>`` element: no literal
+can hold ``</script`` or ``<!--``, which would end or derail the element.
 """
 from __future__ import annotations
 
@@ -10,12 +11,12 @@ import json
 
 from ..expr import num_literal
 from ..thresholds import double_split
-from .dialect import Dialect, Inputs, linear_predictors, plain_number
+from .dialect import Dialect, Inputs, linear_predictors, plain_number, print_expr
 from .tree_spec import TreeNode
 
 
 def js_str(value: str) -> str:
-    return json.dumps(str(value), ensure_ascii=True).replace("</", "<\\/")
+    return json.dumps(str(value), ensure_ascii=True).replace("<", "\\u003c")
 
 
 JS = Dialect(number=plain_number, text=js_str,
@@ -166,3 +167,27 @@ def tree_js(nodes: list[TreeNode], meta: dict) -> str:
     lines.append("  return _LEAVES[leaf];" if meta["task"] == "regression" else "  return _result(_LEAVES[leaf]);")
     lines.append("}")
     return "\n".join(lines) + "\n" + _FOOTER.format(kind="tree")
+
+
+def equation_terms_js(eq, meta: dict) -> str:
+    """``pocketforest_terms.contributions(row)``: for each linear predictor, the intercept and each
+    term's contribution (coefficient × column, summed over the term's columns, in the order of
+    :func:`breakdown.labels`); ``LABELS`` names them. For the calculator page."""
+    from .breakdown import blocks, labels, term_groups
+
+    inputs = Inputs()
+    design = [print_expr(c.node, JS, inputs) for c in eq.columns]
+    lines = _header("terms", meta) + [f"var LABELS = [{', '.join(js_str(x) for x in labels(eq))}];",
+                                       f"var BLOCKS = [{', '.join(js_str(c) if c is not None else 'null' for c, _ in blocks(eq))}];",
+                                       "", "function contributions(row) {"] + _bind(inputs)
+    lines.append("  return [")
+    for _, coef in blocks(eq):
+        parts = [plain_number(coef[0])]
+        for g in term_groups(eq):
+            parts.append(" + ".join(f"{plain_number(coef[1 + j])} * {design[j]}" for j in g.columns))
+        lines.append("    [" + ",\n     ".join(parts) + "],")
+    lines += ["  ];", "}", "",
+              "  return { contributions: contributions, LABELS: LABELS, BLOCKS: BLOCKS, TARGET: TARGET, TASK: TASK,",
+              "           CLASSES: CLASSES, TOOL_VERSION: TOOL_VERSION };",
+              "})();"]
+    return "\n".join(lines) + "\n"

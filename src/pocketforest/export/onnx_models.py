@@ -15,6 +15,7 @@ from skl2onnx.common.data_types import FloatTensorType, StringTensorType
 from ..equation import EquationFit
 from ..expr import Const, Is, Log, Node, Num, Pos, Prod, Square, Sub
 from ..features import Feature
+from .breakdown import grouping_matrix
 
 # ai.onnx.ml opset 3 (TreeEnsembleRegressor/Classifier). Measured with skl2onnx 1.20 and
 # onnxruntime 1.32 on a 200-tree forest: asking for ai.onnx.ml 5 still emits the same legacy
@@ -156,6 +157,26 @@ class _GraphBuilder:
         raise TypeError(f"unknown node {node!r}")
 
 
+def _explain_outputs(g: _GraphBuilder, eq: EquationFit, design: str, eta: str) -> list:
+    """Two more outputs for "why this score", so scoring explains a row with the very graph that
+    predicts it: ``linear_predictor`` [N, B] (the eta above) and ``contributions`` [N, B, 1 + T],
+    intercept then each term of :func:`breakdown.term_groups`, summed over the term's columns
+    (B = 1 for regression and two classes, K - 1 otherwise). Computed apart from eta (elementwise
+    products, then a 0/1 grouping matrix), so their sum checks the eta path, not repeats it."""
+    n = g.op("Slice", [g.op("Shape", [design]), g.const([0], np.int64), g.const([1], np.int64)])
+    ones = g.op("ConstantOfShape", [g.op("Concat", [n, g.const([1], np.int64)], axis=0)],
+                value=numpy_helper.from_array(np.array([1.0], dtype=np.float64)))
+    full = g.op("Concat", [ones, design], axis=1)                                   # [N, 1 + p]
+    coef = np.asarray(eq.coef, dtype=np.float64).reshape(1 + len(eq.columns), -1)   # [1 + p, B]
+    products = g.op("Mul", [g.op("Unsqueeze", [full, g.const([2], np.int64)]), g.const(coef)])
+    by_block = g.op("Transpose", [products], perm=[0, 2, 1])                        # [N, B, 1 + p]
+    g.nodes.append(helper.make_node("MatMul", [by_block, g.const(grouping_matrix(eq).T)], ["contributions"]))
+    g.nodes.append(helper.make_node("Identity", [eta], ["linear_predictor"]))
+    blocks, terms = coef.shape[1], grouping_matrix(eq).shape[0]
+    return [helper.make_tensor_value_info("linear_predictor", TensorProto.DOUBLE, [None, blocks]),
+            helper.make_tensor_value_info("contributions", TensorProto.DOUBLE, [None, blocks, terms])]
+
+
 def equation_model(eq: EquationFit, features: list[Feature], metadata: dict) -> onnx.ModelProto:
     """The GLM as a graph: raw inputs → imputed terms → linear predictor → inverse link."""
     g = _GraphBuilder(features)
@@ -164,6 +185,7 @@ def equation_model(eq: EquationFit, features: list[Feature], metadata: dict) -> 
     coef = np.asarray(eq.coef, dtype=np.float64)
     weights = coef[1:].reshape(len(cols), -1)
     eta = g.op("Add", [g.op("MatMul", [design, g.const(weights)]), g.const(coef[0].reshape(1, -1))])
+    explain = _explain_outputs(g, eq, design, eta)
     outputs = []
     if eq.task == "regression":
         mean = eta if eq.link == "identity" else g.op("Exp", [eta])
@@ -185,7 +207,7 @@ def equation_model(eq: EquationFit, features: list[Feature], metadata: dict) -> 
                     helper.make_tensor_value_info("probabilities", TensorProto.FLOAT, [None, len(eq.classes)])]
     inputs = [helper.make_tensor_value_info(f.onnx_input, TensorProto.FLOAT if f.kind == "numeric"
                                             else TensorProto.STRING, [None, 1]) for f in features]
-    graph = helper.make_graph(g.nodes, "equation", inputs, outputs, g.inits)
+    graph = helper.make_graph(g.nodes, "equation", inputs, outputs + explain, g.inits)
     model = helper.make_model(graph, opset_imports=[helper.make_opsetid("", OPSETS[""]),
                                                     helper.make_opsetid("ai.onnx.ml", OPSETS["ai.onnx.ml"])],
                               producer_name="pocketforest")

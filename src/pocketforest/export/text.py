@@ -1,6 +1,8 @@
 """Plain-text printers: the equation and the tree as a person reads them."""
 from __future__ import annotations
 
+import json
+
 from ..equation import EquationFit
 from ..expr import num_literal
 from ..terms import level_label
@@ -32,7 +34,24 @@ def equation_text(eq: EquationFit, fills: dict, kinds: dict) -> str:
     else:
         lines.append(f"P({eq.target} = k) = exp(eta[k]) / sum_j exp(eta[j]), with eta[{eq.classes[0]}] = 0")
     lines.append("[v = level] is 1 when the column equals that level, else 0; an unseen level counts as the reference.")
-    return "\n".join(lines) + "\n"
+    return "\n".join(lines + [""] + spreadsheet_text(eq, list(kinds))) + "\n"
+
+
+def spreadsheet_text(eq: EquationFit, order: list[str]) -> list[str]:
+    """One-cell spreadsheet formulas for pasting, with where their inputs go. Names are shown as
+    JSON strings, so none can start a line of its own; the formulas come last in the file."""
+    from .workbook import CELL_PREFIX, cell_formulas
+    columns, formulas = cell_formulas(eq, order)
+    out = ["# Spreadsheet (Excel, LibreOffice Calc): put the inputs in row 2, one column each:",
+           "#   " + ", ".join(f"{col} = {json.dumps(name, ensure_ascii=False)}" for col, name in columns),
+           "# then paste a formula below (from its '=') into another cell of row 2; fill down for more rows.",
+           "# A blank cell is a missing value. equation.xlsx holds the same with the coefficients by cell."]
+    for k, (what, formula) in enumerate(formulas, start=1):
+        out.append(f"#   formula {k} gives {json.dumps(what, ensure_ascii=False)}"
+                   + (f" ({len(formula):,} characters: longer than Excel's 8,192 for a cell, use equation.xlsx)"
+                      if len(formula) > 8192 else ""))
+    out += [f"{CELL_PREFIX}{k}: {formula}" for k, (_, formula) in enumerate(formulas, start=1)]
+    return out
 
 
 def _leaf_text(node: TreeNode, task: str, classes: list[str] | None) -> str:

@@ -17,6 +17,7 @@ import numpy as np
 
 from . import plots
 from .mathml import equation_blocks
+from .palette import CSS_VARIABLES
 from .shapes import material_variables, shape_curves
 
 CAUTIONS = [
@@ -42,8 +43,7 @@ SECTIONS = [("data", "Data and splits"), ("scoreboard", "How good is each model"
             ("tree-size", "Tree size and fidelity"), ("elsewhere", "Scoring the bundle elsewhere"),
             ("cautions", "Cautions")]
 
-_STYLE = """
-:root{--ink:#1d2a22;--green:#3f6a35;--deep:#2c4a25;--ochre:#b07a1e;--slate:#3d5f86;--rule:#d9d4c0;--paper:#fbfaf5;--panel:#f3f0e3}
+_STYLE = CSS_VARIABLES + """
 *{box-sizing:border-box}
 body{font-family:Georgia,'Iowan Old Style','Palatino Linotype',serif;max-width:66rem;margin:0 auto;padding:1.5rem 1.2rem 3rem;color:var(--ink);background:var(--paper);line-height:1.45}
 header{border-bottom:3px double var(--green);padding-bottom:.6rem;margin-bottom:1rem}
