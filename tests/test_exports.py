@@ -12,7 +12,7 @@ import onnx
 import pandas as pd
 import pytest
 
-from pocketforest.scoring import runners
+from pocketforest.scoring import engines, runners
 from pocketforest.export.code import FILES
 from pocketforest.export.latex import tex_escape
 from pocketforest.intake import prepare
@@ -191,6 +191,9 @@ def test_tree_code_agrees_with_scikit_learn_at_float32_split_boundaries(small_ru
     if HAVE_NODE:
         got_js = runners.collect(runners.run_js_export(path / "tree.js", runners.json_rows(frame, feats)), "regression", None)
         np.testing.assert_array_equal(got_js["prediction"], want)
+    if shutil.which("Rscript"):
+        got_r = engines.run_r_exports({"tree": path / "tree.R"}, frame, feats, "regression", None, tmp_path)["tree"]
+        np.testing.assert_array_equal(got_r["prediction"], want)
 
 
 def test_double_split_matches_float32_rounding():

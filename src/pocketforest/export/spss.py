@@ -165,14 +165,18 @@ def _bind(codes: _Codes, names: dict[str, str]) -> list[str]:
 def _classify(eq, outputs: list[str], n_blocks: int) -> list[str]:
     label, probs = outputs[0], outputs[1:]
     etas = ["0"] + [f"#eta{k}" for k in range(1, n_blocks + 1)]
-    lines = []
+    # softmax after subtracting the largest score, so EXP never overflows; PSPP also returns
+    # system-missing when EXP underflows, so exponents stop at -700 (EXP(-700) < 1e-304: a
+    # probability that small is 0 for every purpose, and the other forms give 0 there)
+    lines = [f"COMPUTE #top = MAX({', '.join(etas)})."]
+    lines += [f"COMPUTE #w{k} = EXP(MAX({e} - #top, -700))." for k, e in enumerate(etas)]
+    lines += _wrap("COMPUTE #sum = " + " + ".join(f"#w{k}" for k in range(len(etas))) + ".")
     for k, p in enumerate(probs):
-        denom = " + ".join(f"EXP({etas[j]} - {etas[k]})" for j in range(len(etas)))
-        lines += _wrap(f"COMPUTE {p} = 1 / ({denom}).")
+        lines.append(f"COMPUTE {p} = #w{k} / #sum.")
     width = max(1, max(len(str(c).encode("utf-8")) for c in eq.classes))
-    lines += [f"STRING {label} (A{width}).", f"COMPUTE #best = 1.", f"COMPUTE #top = {probs[0]}."]
-    for k, p in enumerate(probs[1:], start=2):
-        lines += [f"DO IF ({p} > #top).", f"  COMPUTE #best = {k}.", f"  COMPUTE #top = {p}.", "END IF."]
+    lines += [f"STRING {label} (A{width}).", "COMPUTE #best = 1.", f"COMPUTE #most = {probs[0]}."]
+    for k, p in enumerate(probs[1:], start=2):   # the first largest probability, as elsewhere
+        lines += [f"DO IF ({p} > #most).", f"  COMPUTE #best = {k}.", f"  COMPUTE #most = {p}.", "END IF."]
     for k, cls in enumerate(eq.classes, start=1):
         lines.append(f"IF (#best = {k}) {label} = {sps_str(cls)}.")
     lines.append(f"VARIABLE LABELS {label} {sps_str('Equation label of ' + str(eq.target))}.")

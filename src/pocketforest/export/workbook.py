@@ -245,22 +245,28 @@ def equation_workbook(eq, meta: dict, features: list, rows, created: str | None 
     return _save(wb, created)
 
 
-def _softmax(etas: list[str]) -> list[str]:
-    """Class probabilities as 1 / sum_j EXP(e_j - e_k), with the reference class's e = 0 (no
-    overflow for large scores; the same arithmetic as the code exports)."""
-    scores = [None] + etas
+def _softmax(etas: list[str], top: str | None = None) -> list[str]:
+    """Class probabilities, the reference class's score being 0. With ``top`` (the largest score,
+    as a formula) EXP(e_k - top) / sum_j EXP(e_j - top), which cannot overflow; without it (a
+    one-cell formula, where every score is written out and repeating it for the maximum would
+    double the length) 1 / sum_j EXP(MIN(700, e_j - e_k)): EXP stops at e^700 (about 1e304) so
+    extreme scores give probabilities of 1e-304 or less instead of #NUM!."""
+    scores = ["0"] + etas
+    if top is not None:
+        total = "+".join(f"EXP({s}-{top})" for s in scores)
+        return [f"EXP({s}-{top})/({total})" for s in scores]
     out = []
     for k in range(len(scores)):
         terms = []
         for j in range(len(scores)):
             if j == k:
                 terms.append("1")
-            elif scores[k] is None:
-                terms.append(f"EXP({scores[j]})")
-            elif scores[j] is None:
-                terms.append(f"EXP(-{scores[k]})")
+            elif k == 0:
+                terms.append(f"EXP(MIN(700,{scores[j]}))")
+            elif j == 0:
+                terms.append(f"EXP(MIN(700,-{scores[k]}))")
             else:
-                terms.append(f"EXP({scores[j]}-{scores[k]})")
+                terms.append(f"EXP(MIN(700,{scores[j]}-{scores[k]}))")
         out.append(f"1/({'+'.join(terms)})")
     return out
 
@@ -268,7 +274,7 @@ def _softmax(etas: list[str]) -> list[str]:
 def _output_formulas(eq, etas: list[str], r: int, first_out: int, refs: dict) -> list[str]:
     if eq.task == "regression":
         return [etas[0] if eq.link == "identity" else f"EXP({etas[0]})"]
-    probs = _softmax(etas)
+    probs = _softmax(etas, top=f"MAX(0,{','.join(etas)})")
     lo, hi = get_column_letter(first_out + 1), get_column_letter(first_out + len(eq.classes))
     label = f"INDEX({refs['classes']},MATCH(MAX({lo}{r}:{hi}{r}),{lo}{r}:{hi}{r},0))"
     return [label] + probs
