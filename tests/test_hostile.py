@@ -8,6 +8,7 @@ JavaScript string literals; HTML's ``</script>``), which is common practice for 
 from __future__ import annotations
 
 import json
+import os
 import shutil
 import sqlite3
 from pathlib import Path
@@ -164,3 +165,30 @@ def test_manifest_naming_a_code_file_outside_the_bundle_is_refused(hostile_bundl
     (copy / "manifest.json").write_text(json.dumps(m), encoding="utf-8")
     r = run_cli("verify", str(copy), cwd=tmp_path)
     assert r.returncode == 2 and r.stderr.startswith("error:") and "outside the bundle" in r.stderr
+
+
+def test_report_r_snippet_runs_as_printed(hostile_bundle, tmp_path):
+    """The report's R snippet, copied from the page as a reader would, runs in R in the bundle
+    folder and gives reference.csv's predictions for its example row (the names in it are the
+    hostile ones)."""
+    import html
+    import re
+    import subprocess
+    if shutil.which("Rscript") is None:
+        pytest.skip("R (Rscript) is not installed")
+    _, bundle, _ = hostile_bundle
+    page = (bundle / "report.html").read_text(encoding="utf-8")
+    code = html.unescape(re.search(r"<h3>R \(base R, no packages\)</h3><pre><code>(.*?)</code></pre>", page, re.S).group(1))
+    out = tmp_path / "result.txt"
+    code += ('\nres <- pocketforest_equation$predict(new_rows)\n'
+             f'writeLines(if (is.data.frame(res)) sprintf("%a", unlist(res[1, -1])) else sprintf("%a", res), {json.dumps(str(out))})\n')
+    r = subprocess.run(["Rscript", "--vanilla", "-e", code], cwd=bundle, capture_output=True, text=True, timeout=120,
+                       env=dict(os.environ, LC_ALL="C.UTF-8"))
+    assert r.returncode == 0, r.stderr
+    got = [float.fromhex(v) for v in out.read_text().split()]
+    from pocketforest.report.page import _example_row
+    manifest = json.loads((bundle / "manifest.json").read_text(encoding="utf-8"))
+    (want,) = runners.run_python_export(bundle / "equation.py", [_example_row(manifest)])
+    want = [want] if not isinstance(want, dict) else [want["probabilities"][c] for c in manifest["classes"]]
+    # both double precision; R's decimal reader may be one unit in the last place off
+    np.testing.assert_allclose(got, want, rtol=1e-12, atol=1e-15)

@@ -18,6 +18,7 @@ import numpy as np
 from . import plots
 from .mathml import equation_blocks
 from .palette import CSS_VARIABLES
+from .snippets import collaborator_snippets
 from .shapes import material_variables, shape_curves
 
 CAUTIONS = [
@@ -318,7 +319,9 @@ def _equation(r, m: dict, files: set[str] | None = None) -> str:
                  + ("A missing number takes its discovery-row median: " + ", ".join(fills) + ". " if fills else "")
                  + "The same equation, term for term, is in "
                  + ", ".join(f"<code>{n}</code>" for n in ("equation.txt", "equation.tex", "equation.onnx", "equation.sql",
-                                                          "equation.py", "equation.js") if _present(files, n) or n in ("equation.txt", "equation.onnx"))
+                                                          "equation.py", "equation.js", "equation.R", "equation.sps",
+                                                          "equation.xlsx", "calculator.html")
+                             if _present(files, n) or n in ("equation.txt", "equation.onnx"))
                  + (" (LaTeX for a paper: <code>equation.tex</code>)" if _present(files, "equation.tex") else "") + ".</p>")
     parts.append(f"<p>Formula as statsmodels reads it:</p><pre class='wrap'><code>{_e(m['formula'])}</code></pre>")
     terms = m.get("terms") or []
@@ -466,6 +469,7 @@ def _elsewhere(m: dict, files: set[str] | None) -> str:
         parts += ["<h3>JavaScript (Node.js or a browser)</h3>",
                   f"<pre><code>const {{ predict }} = require(\"./equation.js\");{other('js')}\n"
                   f"console.log(predict({_e(json.dumps(row))}));</code></pre>"]
+    parts += collaborator_snippets(m, row, lambda name: _present(files, name))
     if not any(_present(files, f"equation.{ext}") for ext in ("sql", "py", "js")):
         parts.append(_absent("This bundle carries no SQL, Python or JavaScript printouts of the models; "
                              "score it through ONNX."))
