@@ -51,8 +51,15 @@ def _skipped(forms: list[tuple[str, str]], engine: str) -> list[Check]:
     return [Check(form, True, None, None, f"skipped: --skip {engine}", skipped=True) for form, _ in forms]
 
 
+R_FORMS = [("equation.R (R)", "equation"), ("tree.R (R)", "tree")]
+PSPP_FORMS = [("equation.sps (GNU PSPP)", "equation")]
+CALC_FORMS = [("equation.xlsx (LibreOffice Calc)", "equation"),
+              ("equation.txt one-cell formulas (LibreOffice Calc)", "equation")]
+PAGE_FORMS = [("calculator.html equation (Chromium)", "equation"), ("calculator.html tree (Chromium)", "tree")]
+
+
 def r_checks(bundle, manifest: dict, ref: pd.DataFrame, work: Path) -> list[Check]:
-    forms = [("equation.R (R)", "equation"), ("tree.R (R)", "tree")]
+    forms = R_FORMS
 
     def run():
         paths = {form: bundle_file(bundle, manifest, f"{model}.R") for form, model in forms}
@@ -61,7 +68,7 @@ def r_checks(bundle, manifest: dict, ref: pd.DataFrame, work: Path) -> list[Chec
 
 
 def pspp_checks(bundle, manifest: dict, ref: pd.DataFrame, work: Path) -> list[Check]:
-    forms = [("equation.sps (GNU PSPP)", "equation")]
+    forms = PSPP_FORMS
     task, classes = manifest["task"], manifest.get("classes")
 
     def run():
@@ -79,8 +86,7 @@ def pspp_checks(bundle, manifest: dict, ref: pd.DataFrame, work: Path) -> list[C
 
 
 def libreoffice_checks(bundle, manifest: dict, ref: pd.DataFrame, work: Path) -> list[Check]:
-    forms = [("equation.xlsx (LibreOffice Calc)", "equation"),
-             ("equation.txt one-cell formulas (LibreOffice Calc)", "equation")]
+    forms = CALC_FORMS
 
     def run():
         from . import sheets
@@ -94,7 +100,7 @@ def libreoffice_checks(bundle, manifest: dict, ref: pd.DataFrame, work: Path) ->
 
 
 def chromium_checks(bundle, manifest: dict, ref: pd.DataFrame, work: Path) -> list[Check]:
-    forms = [("calculator.html equation (Chromium)", "equation"), ("calculator.html tree (Chromium)", "tree")]
+    forms = PAGE_FORMS
 
     def run():
         got = engines.run_calculator(bundle_file(bundle, manifest, "calculator.html"), ref, manifest["features"],
@@ -103,12 +109,8 @@ def chromium_checks(bundle, manifest: dict, ref: pd.DataFrame, work: Path) -> li
     return _guarded(forms, manifest, ref, ["calculator.html"], run)
 
 
-_CHECKS = (("r", r_checks, [("equation.R (R)", ""), ("tree.R (R)", "")]),
-           ("libreoffice", libreoffice_checks, [("equation.xlsx (LibreOffice Calc)", ""),
-                                                ("equation.txt one-cell formulas (LibreOffice Calc)", "")]),
-           ("pspp", pspp_checks, [("equation.sps (GNU PSPP)", "")]),
-           ("chromium", chromium_checks, [("calculator.html equation (Chromium)", ""),
-                                          ("calculator.html tree (Chromium)", "")]))
+_CHECKS = (("r", r_checks, R_FORMS), ("libreoffice", libreoffice_checks, CALC_FORMS),
+           ("pspp", pspp_checks, PSPP_FORMS), ("chromium", chromium_checks, PAGE_FORMS))
 
 
 def collaborator_checks(bundle, manifest: dict, ref: pd.DataFrame, skip=()) -> list[Check]:

@@ -126,7 +126,11 @@ def run_sps(path: Path, frame: pd.DataFrame, features: list[dict], names: dict[s
     """
     exe = pspp()
     workdir = Path(workdir)
-    specs, cols = [f"{ROW_VAR} F8.0"], [list(range(len(frame)))]
+    taken = {v.upper() for v in list(names.values()) + outputs}
+    row_var = ROW_VAR
+    while row_var.upper() in taken:
+        row_var += "_"
+    specs, cols = [f"{row_var} F8.0"], [list(range(len(frame)))]
     for f in features:
         var = names[f["name"]]
         if f["kind"] == "numeric":
@@ -143,7 +147,7 @@ def run_sps(path: Path, frame: pd.DataFrame, features: list[dict], names: dict[s
     csv.writer(buf, lineterminator="\n").writerows(zip(*cols))
     (workdir / "rows.csv").write_text(buf.getvalue(), encoding="ascii")
     shutil.copyfile(path, workdir / "model.sps")
-    keep = " ".join([ROW_VAR] + outputs)
+    keep = " ".join([row_var] + outputs)
     wrapper = ["SET DECIMAL=DOT.",
                "GET DATA /TYPE=TXT /FILE='rows.csv' /ENCODING='UTF-8' /ARRANGEMENT=DELIMITED",
                "  /DELCASE=LINE /DELIMITERS=\",\" /QUALIFIER='\"' /FIRSTCASE=1",
@@ -159,7 +163,7 @@ def run_sps(path: Path, frame: pd.DataFrame, features: list[dict], names: dict[s
     if problems or not (workdir / "result.csv").is_file():
         raise RunnerFailed("GNU PSPP: " + (" | ".join(problems[:3]) or "no result was written"))
     res = pd.read_csv(workdir / "result.csv", dtype=str, keep_default_na=False, encoding="utf-8")
-    res = res.sort_values(ROW_VAR, key=lambda s: s.astype(int), kind="stable").reset_index(drop=True)
+    res = res.sort_values(row_var, key=lambda s: s.astype(int), kind="stable").reset_index(drop=True)
     return res
 
 

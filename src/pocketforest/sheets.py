@@ -74,9 +74,13 @@ def paste_workbook(book: Path, text: str, ref: pd.DataFrame, manifest: dict, out
     from openpyxl.utils import get_column_letter
     from openpyxl.workbook.defined_name import DefinedName
 
-    from .export.workbook import cell_text
+    from .export.workbook import cell_text, text_cell, write_rows
 
-    names = input_names(book)
+    shown = {cell_text(f["name"]): f for f in manifest["features"]}   # headers as the cells hold them
+    try:
+        names = [shown[h]["name"] for h in input_names(book)]
+    except KeyError as exc:
+        raise RunnerFailed(f"equation.xlsx has an input column {exc} the manifest does not list") from None
     kinds = {f["name"]: f["kind"] for f in manifest["features"]}
     count = 1 if manifest["task"] == "regression" else len(manifest["classes"])
     formulas = cell_formulas(text, count)
@@ -84,18 +88,10 @@ def paste_workbook(book: Path, text: str, ref: pd.DataFrame, manifest: dict, out
     ws = wb.active
     ws.title = "paste"
     for c, name in enumerate(names, start=1):
-        cell = ws.cell(row=1, column=c, value=cell_text(name))
-        cell.data_type = "s"
+        text_cell(ws, 1, c, name)
+    write_rows(ws, ref, [(n, kinds[n]) for n in names])
     for i in range(len(ref)):
         r = 2 + i
-        for c, name in enumerate(names, start=1):
-            v = ref[name].iloc[i]
-            if kinds[name] == "numeric":
-                if v is not None and v == v:
-                    ws.cell(row=r, column=c, value=float(v))
-            elif v is not None and v == v and str(v) != "":
-                cell = ws.cell(row=r, column=c, value=cell_text(str(v)))
-                cell.data_type = "s"
         for k, formula in enumerate(formulas):
             col = get_column_letter(len(names) + 2 + k)
             ws[f"{col}{r}"] = Translator(formula, origin=f"{col}2").translate_formula(f"{col}{r}")

@@ -15,9 +15,9 @@ import json
 
 from ..report.palette import CSS_VARIABLES
 from .breakdown import blocks, labels
+from .dialect import equation_inputs
 from .jscode import equation_js, equation_terms_js, tree_js
 from .tree_spec import TreeNode
-from .workbook import equation_inputs
 
 
 def _json(data) -> str:

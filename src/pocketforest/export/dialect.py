@@ -94,6 +94,16 @@ def print_expr(node: Node, d: Dialect, inputs: Inputs) -> str:
     raise TypeError(f"unknown node {node!r}")
 
 
+def equation_inputs(eq, feature_order: list[str]) -> list[tuple[str, str]]:
+    """(name, kind) of the inputs the equation reads, in the data's column order."""
+    probe = Inputs()
+    d = Dialect(number=str, text=str, is_level=lambda var, lit: var, square=str, pos=str, log=str)
+    for c in eq.columns:
+        print_expr(c.node, d, probe)
+    kinds = {r.feature: r.kind for r in probe}
+    return [(n, kinds[n]) for n in feature_order if n in kinds]
+
+
 def linear_predictors(eq, d: Dialect, inputs: Inputs) -> list[str]:
     """eta for each non-reference class (one for regression and two classes), as sums of
     coefficient × design column; the intercept first."""

@@ -31,7 +31,7 @@ from openpyxl.workbook.defined_name import DefinedName
 
 from ..expr import num_literal
 from .breakdown import INTERCEPT, blocks, term_groups
-from .dialect import Dialect, Inputs, print_expr
+from .dialect import Dialect, Inputs, equation_inputs, print_expr
 
 BLANK_ROWS = 25
 #: How verify finds the one-cell formulas: the last lines of equation.txt that start with this.
@@ -105,15 +105,6 @@ class _Cells(Inputs):
         return f"IF(EXACT({cell},{lit}),1,0)"
 
 
-def equation_inputs(eq, feature_order: list[str]) -> list[tuple[str, str]]:
-    """(name, kind) of the inputs the equation reads, in the data's column order."""
-    probe = Inputs()
-    for c in eq.columns:
-        print_expr(c.node, XL, probe)
-    kinds = {r.feature: r.kind for r in probe}
-    return [(n, kinds[n]) for n in feature_order if n in kinds]
-
-
 def _levels_and_fills(eq) -> tuple[dict[str, float], list[tuple[str, str]]]:
     """The fills of the numeric inputs and the (input, level) pairs the formulas compare with."""
     levels: list[tuple[str, str]] = []
@@ -153,7 +144,7 @@ def cell_formulas(eq, feature_order: list[str]) -> tuple[list[tuple[str, str]], 
 
 # ---------------------------------------------------------------- the workbook
 
-def _text(ws, row: int, col: int, value: str, **style):
+def text_cell(ws, row: int, col: int, value: str, **style):
     """A text cell that stays text: never read as a formula, even when it starts with '='."""
     cell = ws.cell(row=row, column=col)
     cell.value = cell_text(value)
@@ -162,6 +153,21 @@ def _text(ws, row: int, col: int, value: str, **style):
     for k, v in style.items():
         setattr(cell, k, v)
     return cell
+
+
+def write_rows(ws, rows, inputs: list[tuple[str, str]], first_row: int = 2, fill=None) -> None:
+    """Input rows from column A: numbers as numbers, categories as text cells, missing as blank."""
+    for i in range(len(rows)):
+        r = first_row + i
+        for c, (name, kind) in enumerate(inputs, start=1):
+            value = rows[name].iloc[i]
+            present = value is not None and value == value and str(value) != ""
+            if kind == "numeric" and present:
+                ws.cell(row=r, column=c).value = float(value)
+            elif present:
+                text_cell(ws, r, c, str(value))
+            if fill is not None:
+                ws.cell(row=r, column=c).fill = fill
 
 
 def _abs(sheet: str, col: int, row: int) -> str:
@@ -192,34 +198,25 @@ def equation_workbook(eq, meta: dict, features: list, rows, created: str | None 
     first_contrib = first_eta + len(coef_blocks)
 
     for i, (name, _) in enumerate(inputs, start=1):
-        _text(ws, 1, i, name, font=_BOLD, fill=_HEAD)
+        text_cell(ws, 1, i, name, font=_BOLD, fill=_HEAD)
     for k, name in enumerate(outputs):
-        _text(ws, 1, first_out + k, name, font=_BOLD, fill=_OUT)
+        text_cell(ws, 1, first_out + k, name, font=_BOLD, fill=_OUT)
     for k, (cls, _) in enumerate(coef_blocks):
-        _text(ws, 1, eta_cols[k], "linear predictor" + (f" ({cls})" if len(coef_blocks) > 1 else ""), font=_BOLD)
+        text_cell(ws, 1, eta_cols[k], "linear predictor" + (f" ({cls})" if len(coef_blocks) > 1 else ""), font=_BOLD)
     contrib_col = {}
     col = first_contrib
     for k, (cls, _) in enumerate(coef_blocks):
         for g, grp in enumerate(groups):
             head = f"contribution: {grp.label}" + (f" ({cls})" if len(coef_blocks) > 1 else "")
-            _text(ws, 1, col, head, font=_BOLD)
+            text_cell(ws, 1, col, head, font=_BOLD)
             contrib_col[(k, g)] = col
             col += 1
 
     n_ref = len(rows)
     last = 1 + n_ref + blank_rows
+    write_rows(ws, rows, inputs, fill=_REF)
     for r in range(2, last + 1):
         i = r - 2
-        if i < n_ref:
-            for c, (name, kind) in enumerate(inputs, start=1):
-                value = rows[name].iloc[i]
-                cell = ws.cell(row=r, column=c)
-                if kind == "numeric":
-                    if value is not None and value == value:
-                        cell.value = float(value)
-                elif value is not None and value == value and str(value) != "":
-                    _text(ws, r, c, str(value))
-                cell.fill = _REF
         cells = _Cells(columns, r, refs)
         for k, (_, coef) in enumerate(coef_blocks):
             for g, grp in enumerate(groups):
@@ -283,20 +280,20 @@ def _output_formulas(eq, etas: list[str], r: int, first_out: int, refs: dict) ->
 def _coefficient_sheet(cs, eq, coef_blocks) -> dict:
     """Coefficients (columns C..), fills, levels and classes; returns the absolute references."""
     refs: dict = {"coef": {}, "fill": {}, "level": {}}
-    _text(cs, 1, 1, "term", font=_BOLD, fill=_HEAD)
-    _text(cs, 1, 2, "design column", font=_BOLD, fill=_HEAD)
+    text_cell(cs, 1, 1, "term", font=_BOLD, fill=_HEAD)
+    text_cell(cs, 1, 2, "design column", font=_BOLD, fill=_HEAD)
     for k, (cls, _) in enumerate(coef_blocks):
-        _text(cs, 1, 3 + k, "coefficient" + (f" ({cls} against {eq.classes[0]})" if eq.task == "classification" else ""),
+        text_cell(cs, 1, 3 + k, "coefficient" + (f" ({cls} against {eq.classes[0]})" if eq.task == "classification" else ""),
               font=_BOLD, fill=_HEAD)
     label_of = {}
     for g in term_groups(eq):
         for j in g.columns:
             label_of[j] = g.label
-    _text(cs, 2, 1, INTERCEPT)
-    _text(cs, 2, 2, INTERCEPT)
+    text_cell(cs, 2, 1, INTERCEPT)
+    text_cell(cs, 2, 2, INTERCEPT)
     for j, c in enumerate(eq.columns):
-        _text(cs, 3 + j, 1, label_of.get(j, c.label))
-        _text(cs, 3 + j, 2, c.label)
+        text_cell(cs, 3 + j, 1, label_of.get(j, c.label))
+        text_cell(cs, 3 + j, 2, c.label)
     for k, (_, coef) in enumerate(coef_blocks):
         cs.cell(row=2, column=3 + k).value = float(coef[0])
         refs["coef"][(k, -1)] = _abs(COEFS, 3 + k, 2)
@@ -305,22 +302,22 @@ def _coefficient_sheet(cs, eq, coef_blocks) -> dict:
             refs["coef"][(k, j)] = _abs(COEFS, 3 + k, 3 + j)
     base = 3 + len(coef_blocks) + 1
     fills, levels = _levels_and_fills(eq)
-    _text(cs, 1, base, "input", font=_BOLD, fill=_HEAD)
-    _text(cs, 1, base + 1, "a blank cell counts as", font=_BOLD, fill=_HEAD)
+    text_cell(cs, 1, base, "input", font=_BOLD, fill=_HEAD)
+    text_cell(cs, 1, base + 1, "a blank cell counts as", font=_BOLD, fill=_HEAD)
     for i, (name, fill) in enumerate(fills.items(), start=2):
-        _text(cs, i, base, name)
+        text_cell(cs, i, base, name)
         cs.cell(row=i, column=base + 1).value = float(fill)
         refs["fill"][name] = _abs(COEFS, base + 1, i)
-    _text(cs, 1, base + 3, "input", font=_BOLD, fill=_HEAD)
-    _text(cs, 1, base + 4, "level compared", font=_BOLD, fill=_HEAD)
+    text_cell(cs, 1, base + 3, "input", font=_BOLD, fill=_HEAD)
+    text_cell(cs, 1, base + 4, "level compared", font=_BOLD, fill=_HEAD)
     for i, (name, level) in enumerate(levels, start=2):
-        _text(cs, i, base + 3, name)
-        _text(cs, i, base + 4, level)
+        text_cell(cs, i, base + 3, name)
+        text_cell(cs, i, base + 4, level)
         refs["level"][(name, level)] = _abs(COEFS, base + 4, i)
     if eq.task == "classification":
-        _text(cs, 1, base + 6, "classes", font=_BOLD, fill=_HEAD)
+        text_cell(cs, 1, base + 6, "classes", font=_BOLD, fill=_HEAD)
         for i, cls in enumerate(eq.classes, start=2):
-            _text(cs, i, base + 6, cls)
+            text_cell(cs, i, base + 6, cls)
         col = get_column_letter(base + 6)
         refs["classes"] = f"{quote_sheetname(COEFS)}!${col}$2:${col}${1 + len(eq.classes)}"
     for c in range(1, base + 7):
@@ -357,7 +354,7 @@ def _notes(ns, eq, meta: dict, inputs, n_ref: int, last: int, cautions) -> None:
              "", "Cautions:"]
     lines += [f"- {_plain(c)}" for c in cautions]
     for i, text in enumerate(lines, start=1):
-        _text(ns, i, 1, text, alignment=Alignment(wrap_text=True, vertical="top"))
+        text_cell(ns, i, 1, text, alignment=Alignment(wrap_text=True, vertical="top"))
     ns.column_dimensions["A"].width = 110
 
 
