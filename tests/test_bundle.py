@@ -32,7 +32,8 @@ def test_bundle_is_complete_and_valid(bundles, name):
 @pytest.mark.parametrize("name", ["regression", "binary", "multiclass"])
 def test_verify_passes(bundles, name):
     from pocketforest.scoring.verify import verify_bundle
-    checks = verify_bundle(bundles[name])
+    # LibreOffice and Chromium run on these bundles in tests/test_exports.py
+    checks = verify_bundle(bundles[name], skip=("libreoffice", "chromium"))
     assert all(c.ok for c in checks), [c.line() for c in checks]
     assert sum("onnxruntime, Python" in c.form for c in checks) == 3
 

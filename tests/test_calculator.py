@@ -13,9 +13,9 @@ import shutil
 import numpy as np
 import pytest
 
-from pocketforest import engines
-from pocketforest.bundle_io import read_manifest
-from pocketforest.verify import read_reference
+from pocketforest.scoring import engines
+from pocketforest.scoring.bundle_io import read_manifest
+from pocketforest.scoring.verify import read_reference
 
 pytestmark = pytest.mark.skipif(shutil.which("chromedriver") is None or shutil.which("chromium") is None,
                                 reason="Chromium and chromedriver are not installed")

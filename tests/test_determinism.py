@@ -4,8 +4,9 @@ prediction of every exported form.
 The two runs are separate processes with different PYTHONHASHSEED values, so an order that leaks
 from a set or dict of strings (hash-randomised per process, Python docs: object.__hash__) would
 show up here. ONNX files embed the creation time in their metadata, so the graphs are compared
-by their outputs on the reference rows, not byte for byte; reference.csv and the text exports
-must match byte for byte.
+by their outputs on the reference rows, not byte for byte (the workbook too carries the time, and
+tests/test_workbook.py checks that equal content and time give equal bytes); reference.csv and
+the text exports must match byte for byte.
 """
 from __future__ import annotations
 
@@ -19,7 +20,8 @@ import pytest
 from conftest import run_cli, synthetic_table
 
 # Files whose bytes may carry the creation time; everything else in a bundle must be identical.
-STAMPED = {"forest.onnx", "tree.onnx", "equation.onnx", "report.html", "manifest.json"}
+STAMPED = {"forest.onnx", "tree.onnx", "equation.onnx", "report.html", "manifest.json",
+           "equation.xlsx"}   # the workbook's document properties carry the bundle's creation time
 
 
 def _distill(csv: Path, out: Path, hashseed: str, monkeypatch) -> Path:

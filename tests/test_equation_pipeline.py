@@ -3,6 +3,7 @@ Invented data with a known structure."""
 from __future__ import annotations
 
 import json
+import shutil
 
 import numpy as np
 import pandas as pd
@@ -20,6 +21,9 @@ def _counts(n=400, seed=0, base=0.2):
     return df
 
 
+ENGINES_HERE = all(shutil.which(p) for p in ("node", "Rscript", "soffice", "pspp", "chromium", "chromedriver"))
+
+
 def test_poisson_equation_end_to_end_passes_verify(tmp_path):
     data = tmp_path / "counts.csv"
     _counts().to_csv(data, index=False)
@@ -31,8 +35,9 @@ def test_poisson_equation_end_to_end_passes_verify(tmp_path):
     assert m["equation"]["family"] == "poisson" and m["equation"]["link"] == "log"
     dose = next(c for c in m["equation"]["coefficients"] if c["term"] == "dose")
     assert dose["ci_low"] < 0.8 < dose["ci_high"]          # the constructed rate ratio per unit dose
-    r = run_cli("verify", str(out))
+    r = run_cli("verify", str(out))   # every engine: the only bundle with a log link in the tests
     assert r.returncode == 0, r.stdout
+    assert "skip" not in r.stdout or not ENGINES_HERE, r.stdout
 
 
 def test_equation_sees_only_the_confirmation_rows():
@@ -80,4 +85,4 @@ def test_multiclass_bundle_manifest_states_the_note(bundles):
     assert "confirmation rows" in m["equation"]["note"]
     assert m["equation"]["method"] in ("maximum likelihood", "Firth penalised likelihood")
     assert m["equation"]["scoring"]["fit_on"] == "discovery+confirmation"
-    assert all(c.ok for c in verify_bundle(bundles["multiclass"]))
+    assert all(c.ok for c in verify_bundle(bundles["multiclass"], skip=("libreoffice", "chromium")))

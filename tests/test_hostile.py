@@ -17,13 +17,14 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from pocketforest.scoring import runners
+from pocketforest.scoring import engines, runners
 from pocketforest.intake import load
 from pocketforest.pipeline import Settings, distill
 
 from conftest import run_cli
 
 HAVE_NODE = shutil.which("node") is not None
+HAVE_ALL = all(shutil.which(p) for p in ("node", "Rscript", "soffice", "pspp", "chromium", "chromedriver"))
 
 HOSTILE_NAMES = [
     'he said "hi" and \'bye\'',
@@ -90,8 +91,8 @@ def test_verify_runs_and_matches_every_form(hostile_bundle):
     r = run_cli("verify", str(bundle), cwd=base)
     assert r.returncode == 0, r.stdout + r.stderr
     lines = [ln for ln in r.stdout.splitlines() if ln[:4] in ("ok  ", "FAIL", "skip")]
-    assert len(lines) == 15
-    if HAVE_NODE:
+    assert len(lines) == 22
+    if HAVE_ALL:   # CI: Node.js, R, LibreOffice, GNU PSPP and Chromium all ran and matched
         assert all(ln.startswith("ok") for ln in lines), r.stdout
     manifest = json.loads((bundle / "manifest.json").read_text(encoding="utf-8"))
     names = {f["name"] for f in manifest["features"]}
@@ -122,7 +123,16 @@ def test_nothing_in_the_exports_executes(hostile_bundle, tmp_path):
         assert con.execute("SELECT COUNT(*) FROM input_rows").fetchone()[0] == len(rows)
         for engine in ("sqlite", "duckdb"):  # run_sql also checks the table afterwards
             assert len(runners.run_sql(engine, (bundle / f"{model}.sql").read_text(encoding="utf-8"), rows, feats)) == len(rows)
-    assert not list(base.glob("PWNED*")) and not list(Path.cwd().glob("PWNED*"))
+    task, classes = manifest["task"], manifest.get("classes")
+    if shutil.which("Rscript"):
+        got = engines.run_r_exports({m: bundle / f"{m}.R" for m in ("equation", "tree")}, rows, feats, task, classes,
+                                    tmp_path)
+        assert all(len(next(iter(v.values()))) == len(rows) for v in got.values())
+    if shutil.which("pspp"):
+        names = {f["name"]: f["spss_name"] for f in feats}
+        out = ["pred_equation"] if task == "regression" else ["label_equation"]
+        assert len(engines.run_sps(bundle / "equation.sps", rows, feats, names, out, tmp_path)) == len(rows)
+    assert not list(base.glob("PWNED*")) and not list(Path.cwd().glob("PWNED*")) and not list(tmp_path.glob("PWNED*"))
 
 
 def test_equation_tex_typesets(hostile_bundle, tmp_path):
@@ -141,6 +151,22 @@ def test_data_reaches_code_only_as_literals(hostile_bundle):
     sql = (bundle / "equation.sql").read_text(encoding="utf-8")
     assert '"x\'); DROP TABLE input_rows; --"' in sql     # an identifier, quoted
     assert "'''); DROP TABLE input_rows; --'" in sql      # a string, its quote doubled
+    for name in ("equation.R", "tree.R", "equation.sps"):
+        text = (bundle / name).read_text(encoding="utf-8")
+        assert text.isascii() and "two\nlines" not in text, name
+    assert '"back\\\\slash; -- drop table input_rows"' in (bundle / "equation.R").read_text()  # R: backslash doubled
+    sps = (bundle / "equation.sps").read_text(encoding="ascii")
+    assert "'''); DROP TABLE input_rows; --'" in sps      # SPSS: the quote doubled inside '...'
+    page = (bundle / "calculator.html").read_text(encoding="utf-8")
+    assert page.lower().count("</script") == page.lower().count("<script")   # only the page's own closing tags
+    spec = page.split("id='pf-spec'>", 1)[1].split("</script>", 1)[0]
+    assert "<" not in spec and json.loads(spec)["inputs"]
+    from openpyxl import load_workbook
+    wb = load_workbook(bundle / "equation.xlsx")
+    formulas = [c.value for ws in wb for row in ws.iter_rows() for c in row if c.data_type == "f"]
+    assert formulas and not any(w in f for f in formulas for w in ("DROP", "require(", "__import__", "script"))
+    header = [c.value for c in wb["inputs"][1]]
+    assert "two\nlines" in header and "</script><script>alert(1)</script>" in header
 
 
 @pytest.mark.parametrize("hostile_bundle", ["regression"], indirect=True)
@@ -192,3 +218,26 @@ def test_report_r_snippet_runs_as_printed(hostile_bundle, tmp_path):
     want = [want] if not isinstance(want, dict) else [want["probabilities"][c] for c in manifest["classes"]]
     # both double precision; R's decimal reader may be one unit in the last place off
     np.testing.assert_allclose(got, want, rtol=1e-12, atol=1e-15)
+
+
+@pytest.mark.parametrize("hostile_bundle", ["classification"], indirect=True)
+def test_calculator_shows_names_and_classes_as_text(hostile_bundle, tmp_path):
+    """In Chromium, the page's labels are the hostile names themselves, as text; none ran."""
+    if shutil.which("chromium") is None or shutil.which("chromedriver") is None:
+        pytest.skip("Chromium and chromedriver are not installed")
+    from selenium.common.exceptions import NoAlertPresentException
+    from selenium.webdriver.common.by import By
+    _, bundle, _ = hostile_bundle
+    manifest = json.loads((bundle / "manifest.json").read_text(encoding="utf-8"))
+    driver = engines.open_page(bundle / "calculator.html", tmp_path)
+    try:
+        labels = [e.get_attribute("textContent") for e in driver.find_elements(By.CSS_SELECTOR, "#pf-inputs label")]
+        assert set(HOSTILE_NAMES) <= set(labels)
+        cells = [e.get_attribute("textContent")
+                 for e in driver.find_elements(By.CSS_SELECTOR, ".card.equation table td:first-child")]
+        assert cells == manifest["classes"]
+        assert driver.execute_script("return document.querySelectorAll('script').length") == 5
+        with pytest.raises(NoAlertPresentException):
+            driver.switch_to.alert.text
+    finally:
+        driver.quit()

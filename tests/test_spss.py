@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from pocketforest import engines
+from pocketforest.scoring import engines
 from pocketforest.export.spss import equation_sps, sps_str, spss_names
 
 from test_rcode import _fit

@@ -16,7 +16,7 @@ import pandas as pd
 import pytest
 from openpyxl import load_workbook
 
-from pocketforest import engines, sheets
+from pocketforest.scoring import engines, sheets
 from pocketforest.equation import fit_equation
 from pocketforest.export.workbook import equation_workbook, xl_string
 from pocketforest.export.text import spreadsheet_text

@@ -37,6 +37,7 @@ class Bundle:
         self.path = str(path)
         self.manifest = read_manifest(path)
         self._scorers: dict = {}
+        self._explainer = None
 
     @property
     def task(self) -> str:
@@ -56,14 +57,34 @@ class Bundle:
             raise ValueError("predict_proba is for classification bundles")
         return self._run(data, model)["probabilities"]
 
-    def _run(self, data: pd.DataFrame, model: str) -> dict:
-        from .scoring.runtime import Scorer
+    def explain(self, data: pd.DataFrame, model: str | None = None) -> pd.DataFrame:
+        """Why each row scores as it does: for the equation the linear predictor and each term's
+        contribution on the link scale (intercept included; they add up to it), for the tree the
+        leaf and the rules the row followed. ``model``: "equation", "tree" or None for both.
+        Rows keep ``data``'s index; the columns are those ``score --explain`` writes."""
+        from .scoring.explain import Explainer
+        if model not in (None, "equation", "tree"):
+            raise ValueError("explain takes model='equation', 'tree' or None (both); the forest has no short reason")
+        if self._explainer is None:
+            self._explainer = Explainer(self.path, self.manifest)
+        typed = self._typed(data)
+        parts = []
+        if model in (None, "equation"):
+            parts.append(self._explainer.equation(typed))
+        if model in (None, "tree"):
+            parts.append(self._explainer.tree(typed))
+        return pd.concat(parts, axis=1)
+
+    def _typed(self, data: pd.DataFrame) -> pd.DataFrame:
         from .scoring.score import features_of
         from .intake.coerce import coerce_for_scoring
+        return coerce_for_scoring(data, features_of(self.manifest), source="<DataFrame>")
+
+    def _run(self, data: pd.DataFrame, model: str) -> dict:
+        from .scoring.runtime import Scorer
         if model not in self._scorers:
             self._scorers[model] = Scorer(self.path, model, self.manifest)
-        typed = coerce_for_scoring(data, features_of(self.manifest), source="<DataFrame>")
-        return self._scorers[model].run(typed)
+        return self._scorers[model].run(self._typed(data))
 
 
 def load_bundle(path: str | os.PathLike) -> Bundle:

@@ -90,10 +90,16 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--model", choices=["forest", "tree", "equation"], required=True)
     p.add_argument("--out", help=".csv or .parquet file (default: CSV on stdout)")
     p.add_argument("--keep", nargs="+", default=[], metavar="COL", help="input columns to copy into the output")
+    p.add_argument("--explain", action="store_true",
+                   help="also write why: with --model equation the linear predictor and each term's contribution "
+                        "(link scale, intercept included, they add up to it); with --model tree the leaf and the "
+                        "rules the row followed")
     _common(p)
 
     p = sub.add_parser("verify", help="check a bundle's files and every exported form against its reference rows")
     p.add_argument("bundle")
+    p.add_argument("--skip", nargs="+", default=[], metavar="ENGINE",
+                   help="leave these engines out (reported as skipped): node, r, libreoffice, pspp, chromium")
     _common(p)
 
     p = sub.add_parser("compare", help="loss, fidelity and drift of a bundle on new labelled rows",
@@ -185,13 +191,14 @@ def _run(args: argparse.Namespace) -> int:
         return _run_distill(str(DEMO_DATA), DEMO_TARGET, _demo_args(args))
     if args.command == "score":
         from .scoring.score import score_file
-        n = score_file(args.bundle, args.data, args.model, args.out, args.keep, quiet=args.quiet)
+        n = score_file(args.bundle, args.data, args.model, args.out, args.keep, quiet=args.quiet,
+                       explain=args.explain)
         if args.out and not args.quiet:
             print(f"wrote {n} predictions to {args.out}", file=sys.stderr)
         return 0
     if args.command == "verify":
         from .scoring.verify import verify_bundle
-        checks = verify_bundle(args.bundle, quiet=args.quiet)
+        checks = verify_bundle(args.bundle, quiet=args.quiet, skip=tuple(args.skip))
         for c in checks:
             print(c.line())
         bad = [c for c in checks if not c.ok]

@@ -17,22 +17,28 @@ from pocketforest.scoring.bundle_io import sha256
 from conftest import SRC
 
 NODE = shutil.which("node")
+#: LibreOffice and Chromium take seconds to start; the tests about other forms leave them out
+#: (``verify --skip``); tests/test_exports.py, tests/test_hostile.py and the test below run them.
+SLOW = ("libreoffice", "chromium")
+ENGINES_HERE = all(shutil.which(p) for p in ("Rscript", "soffice", "pspp", "chromium", "chromedriver"))
 
 
 _CLI = ("import sys\n"
         "from pocketforest.cli import main\n"
-        "rc = main(['verify', sys.argv[1]])\n"
+        "rc = main(['verify'] + sys.argv[1:])\n"
         "leaked = sorted({m.split('.')[0] for m in sys.modules} & {'sklearn', 'statsmodels', 'patsy', 'skl2onnx'})\n"
         "print('fitting libraries imported:', leaked, file=sys.stderr)\n"
         "sys.exit(rc)\n")
 
 
-def _verify(bundle: Path, env_extra: dict | None = None, path: str | None = None) -> subprocess.CompletedProcess:
+def _verify(bundle: Path, env_extra: dict | None = None, path: str | None = None,
+            skip: tuple[str, ...] = SLOW) -> subprocess.CompletedProcess:
     """The verify command in a new interpreter; it must not import any fitting library."""
     env = dict(os.environ, PYTHONPATH=str(SRC), **(env_extra or {}))
     if path is not None:
         env["PATH"] = path
-    r = subprocess.run([sys.executable, "-c", _CLI, str(bundle)], capture_output=True, text=True, env=env, timeout=600)
+    args = [str(bundle)] + (["--skip", *skip] if skip else [])
+    r = subprocess.run([sys.executable, "-c", _CLI, *args], capture_output=True, text=True, env=env, timeout=600)
     assert "fitting libraries imported: []" in r.stderr, r.stderr
     return r
 
@@ -41,6 +47,11 @@ def _edit(bundle: Path, name: str, change) -> None:
     """Change one artifact and re-sign it in the manifest, so only the parity checks can notice."""
     p = bundle / name
     p.write_text(change(p.read_text(encoding="utf-8")), encoding="utf-8")
+    _resign(bundle, name)
+
+
+def _resign(bundle: Path, name: str) -> None:
+    p = bundle / name
     m = json.loads((bundle / "manifest.json").read_text(encoding="utf-8"))
     m["artifacts"][name] = sha256(p)
     m["artifact_sizes"][name] = p.stat().st_size
@@ -51,13 +62,14 @@ def _lines(stdout: str, form: str) -> list[str]:
     return [ln for ln in stdout.splitlines() if form in ln]
 
 
-def _verify_here(bundle: Path, monkeypatch, env_extra: dict | None = None, path: str | None = None) -> str:
+def _verify_here(bundle: Path, monkeypatch, env_extra: dict | None = None, path: str | None = None,
+                 skip: tuple[str, ...] = SLOW) -> str:
     """verify in this process (quicker than a new interpreter); the lines the CLI would print."""
     for k, v in (env_extra or {}).items():
         monkeypatch.setenv(k, v)
     if path is not None:
         monkeypatch.setenv("PATH", path)
-    checks = verify.verify_bundle(bundle)
+    checks = verify.verify_bundle(bundle, skip=skip)
     return "\n".join(c.line() for c in checks)
 
 
@@ -95,11 +107,17 @@ def test_sql_with_a_second_statement_is_not_run(copy, monkeypatch):
 def test_without_node_the_node_checks_are_skipped_with_a_reason(copy, tmp_path):
     empty = tmp_path / "bin"
     empty.mkdir()
-    r = _verify(copy, path=str(empty))  # the command line: skips do not fail verify
+    r = _verify(copy, path=str(empty), skip=())  # the command line: skips do not fail verify
     assert r.returncode == 0, r.stdout + r.stderr
     skipped = [ln for ln in r.stdout.splitlines() if ln.startswith("skip")]
-    assert len(skipped) == 5 and all("Node.js (node) is not installed" in ln for ln in skipped)
-    assert "10 of 15 checks passed, 5 skipped" in r.stdout
+    node = [ln for ln in skipped if "Node.js" in ln]
+    assert len(node) == 5 and all("Node.js (node) is not installed" in ln for ln in node)
+    # every other engine is absent from this PATH too: each says which one and what to install
+    others = {"R (R)": "Rscript", "(LibreOffice Calc)": "soffice", "(GNU PSPP)": "pspp", "(Chromium)": "chromedriver"}
+    for form, program in others.items():
+        lines = [ln for ln in skipped if form in ln]
+        assert lines and all(program in ln for ln in lines), (form, skipped)
+    assert "10 of 22 checks passed, 12 skipped" in r.stdout
 
 
 @pytest.mark.skipif(NODE is None, reason="needs Node.js")
@@ -113,8 +131,8 @@ def test_failed_npm_install_skips_only_onnx_in_node_with_a_notice(copy, tmp_path
     out = _verify_here(copy, monkeypatch, env_extra={"POCKETFOREST_NODE_DIR": str(tmp_path / "nodedir")},
                        path=str(bindir))
     assert "installing onnxruntime-node@1 into" in capsys.readouterr().err
-    skipped = [ln for ln in out.splitlines() if ln.startswith("skip")]
-    assert len(skipped) == 3 and all("onnxruntime-node" in ln and "failed" in ln for ln in skipped)
+    skipped = [ln for ln in out.splitlines() if ln.startswith("skip") and "onnxruntime-node" in ln]
+    assert len(skipped) == 3 and all("failed" in ln for ln in skipped)
     assert not [ln for ln in out.splitlines() if ln.startswith("FAIL")]
     assert _lines(out, "tree.js")[0].startswith("ok")
 
@@ -127,7 +145,7 @@ def test_extra_checks_are_run_and_counted(bundles, monkeypatch):
         return [verify.Check("custom form", False, 1.0, 0.0, "always differs")]
 
     monkeypatch.setattr(verify, "EXTRA_CHECKS", [extra])
-    checks = verify.verify_bundle(bundles["binary"], quiet=True)
+    checks = verify.verify_bundle(bundles["binary"], quiet=True, skip=SLOW)
     assert seen and checks[-1].form == "custom form" and not checks[-1].ok
 
 
@@ -136,3 +154,26 @@ def test_tampered_checksum_stops_before_running_anything(copy, monkeypatch):
         fh.write("\n// edited\n")
     out = _verify_here(copy, monkeypatch)
     assert out.splitlines() == ["FAIL  checksums  equation.js altered"]
+
+
+@pytest.mark.skipif(not ENGINES_HERE, reason="needs R, LibreOffice, GNU PSPP, Chromium and chromedriver")
+def test_wrong_collaborator_forms_fail_even_with_matching_checksums(copy):
+    """Each engine's check can fail: a changed coefficient in equation.R, equation.sps and the
+    workbook, a changed leaf in tree.R, a calculator whose tree answers wrongly, all re-signed."""
+    from openpyxl import load_workbook
+    _edit(copy, "equation.R", lambda t: t.replace("  COEFFICIENTS <- c(\n    ", "  COEFFICIENTS <- c(\n    1e-3 + ", 1))
+    _edit(copy, "tree.R", lambda t: t.replace("    LEAVES[k]", "    LEAVES[k] * 1.001"))
+    _edit(copy, "equation.sps", lambda t: t.replace("COMPUTE pred_equation = #eta1.", "COMPUTE pred_equation = #eta1 + 1e-3."))
+    _edit(copy, "calculator.html", lambda t: t.replace('showModel("pf-tree", tree.predict(r.values));',
+                                                       'showModel("pf-tree", tree.predict(r.values) + 1e-3);'))
+    wb = load_workbook(copy / "equation.xlsx")
+    wb["coefficients"]["C2"].value = wb["coefficients"]["C2"].value + 1e-3     # the intercept
+    wb.save(copy / "equation.xlsx")
+    _resign(copy, "equation.xlsx")
+    r = _verify(copy, skip=("node",))
+    assert r.returncode == 1, r.stdout
+    for form in ("equation.R (R)", "tree.R (R)", "equation.sps (GNU PSPP)", "equation.xlsx (LibreOffice Calc)",
+                 "calculator.html tree (Chromium)"):
+        assert _lines(r.stdout, form)[0].startswith("FAIL"), (form, r.stdout)
+    for form in ("equation.txt one-cell formulas (LibreOffice Calc)", "calculator.html equation (Chromium)"):
+        assert _lines(r.stdout, form)[0].startswith("ok"), (form, r.stdout)

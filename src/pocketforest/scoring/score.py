@@ -26,6 +26,7 @@ from ..features import Feature
 from ..intake.coerce import coerce_for_scoring
 from ..intake.reading import iter_table
 from .bundle_io import read_manifest
+from .explain import Explainer, equation_columns
 from .runtime import Scorer, envelope_count
 
 CHUNK_ROWS = 20_000  # a 100,000-row chunk of text cells peaked near 250 MB; 20,000 near 45 MB
@@ -108,16 +109,31 @@ class _ParquetSink:
             self.writer = None
 
 
+def _why(bundle: str, manifest: dict, model: str):
+    """(rows -> explanation columns, their names) for ``--explain`` (see :mod:`.explain`)."""
+    if model == "forest":
+        raise InputError("--explain explains the surrogates: use --model equation (each term's contribution) "
+                         "or --model tree (the rules each row followed)")
+    explainer = Explainer(bundle, manifest)
+    if model == "equation":
+        eta, parts = equation_columns(manifest)
+        return explainer.equation, eta + parts
+    explainer.rule_texts()  # an old bundle without tree nodes fails here, before any output
+    return explainer.tree, ["tree_leaf", "tree_path"]
+
+
 def score_file(bundle: str, data: str, model: str, out: str | None, keep: list[str] | None = None,
-               quiet: bool = False, chunk_rows: int = CHUNK_ROWS) -> int:
-    """Write predictions to ``out`` (CSV or Parquet by extension) or CSV on stdout; returns rows scored."""
+               quiet: bool = False, chunk_rows: int = CHUNK_ROWS, explain: bool = False) -> int:
+    """Write predictions to ``out`` (CSV or Parquet by extension) or CSV on stdout; returns rows
+    scored. ``explain`` adds the surrogate's reasons per row (:func:`_why`)."""
     manifest = read_manifest(bundle)
     scorer = Scorer(bundle, model, manifest)
     features = features_of(manifest)
     keep = list(dict.fromkeys(keep or []))
     _check_out(out)
+    why, why_names = _why(bundle, manifest, model) if explain else (None, [])
     names = ["prediction"] if manifest["task"] == "regression" else ["label"] + [f"prob_{c}" for c in manifest["classes"]]
-    clash = [k for k in keep if k in names + ["inputs_outside_training"]]
+    clash = [k for k in keep if k in names + ["inputs_outside_training"] + why_names]
     if clash:
         raise InputError(f"--keep column '{clash[0]}' has the name of an output column: rename it in {data}")
     stray = _Stray(features)
@@ -139,6 +155,8 @@ def score_file(bundle: str, data: str, model: str, out: str | None, keep: list[s
             typed = coerce_for_scoring(chunk, features, source=str(data), first_row=first_row)
             pred = scorer.columns(typed)
             pred["inputs_outside_training"] = envelope_count(typed, manifest["features"])
+            if why is not None:
+                pred = pd.concat([pred, why(typed)], axis=1)
             stray.add(typed)
             frame = pd.concat([chunk[keep].reset_index(drop=True), pred.reset_index(drop=True)], axis=1)
             if out is None:

@@ -10,12 +10,17 @@ libraries wrote there, and passes when the largest difference is within the form
   splits written so a double comparison equals scikit-learn's float32 one
   (:func:`pocketforest.thresholds.double_split`): values within 1e-7 * max(1, largest |reference|),
   probabilities within 1e-7 (summation order and libm differ, nothing more);
+* R (equation.R, tree.R), LibreOffice Calc (equation.xlsx and the one-cell formulas of
+  equation.txt), GNU PSPP (equation.sps) and Chromium (calculator.html) compute in double
+  precision too and are held to the same 1e-7 (:mod:`pocketforest.scoring.engine_checks`);
 * labels: identical, except on rows where the reference's top two probabilities are closer than
   the form's probability tolerance.
 
 The forms run where they will live (:mod:`pocketforest.scoring.runners`): nothing from the bundle is
 imported or executed in this process. A check whose runtime is absent (no Node.js, or npm could
-not install onnxruntime-node) is reported as skipped with the reason; a skip does not fail verify.
+not install onnxruntime-node; no Rscript, soffice, pspp, or Chromium with chromedriver and
+selenium) is reported as skipped with the reason; a skip does not fail verify. ``skip`` leaves
+chosen engines out on purpose (``verify --skip libreoffice chromium``), reported the same way.
 """
 from __future__ import annotations
 
@@ -26,7 +31,7 @@ from typing import Callable
 import numpy as np
 import pandas as pd
 
-from ..errors import BundleError
+from ..errors import BundleError, InputError
 from . import runners
 from .bundle_io import bundle_file, read_manifest, sha256
 from .runtime import MODELS, Scorer
@@ -148,7 +153,7 @@ def _code_check(form: str, bundle, manifest, ref, model: str, file: str, run) ->
     return compare_predictions(form, manifest, ref, model, got, rtol=CODE_RTOL, prob_atol=CODE_PROB_ATOL)
 
 
-def _code_checks(bundle, manifest, ref) -> list[Check]:
+def _code_checks(bundle, manifest, ref, skip_node: bool = False) -> list[Check]:
     task, classes, features = manifest["task"], manifest.get("classes"), manifest["features"]
     rows = runners.json_rows(ref, features)
     out = []
@@ -163,6 +168,9 @@ def _code_checks(bundle, manifest, ref) -> list[Check]:
                                f"{model}.py",
                                lambda p: runners.collect(runners.run_python_export(p, rows), task, classes)))
     for model in ("equation", "tree"):
+        if skip_node:
+            out.append(Check(f"{model}.js (Node.js)", True, None, None, "skipped: --skip node", skipped=True))
+            continue
         out.append(_code_check(f"{model}.js (Node.js)", bundle, manifest, ref, model, f"{model}.js",
                                lambda p: runners.collect(runners.run_js_export(p, rows), task, classes)))
     return out
@@ -172,15 +180,29 @@ def _code_checks(bundle, manifest, ref) -> list[Check]:
 EXTRA_CHECKS: list[Callable[[str | Path, dict, pd.DataFrame], list[Check]]] = []
 
 
-def verify_bundle(bundle: str | Path, *, quiet: bool = False) -> list[Check]:
+#: Engines ``verify --skip`` may leave out (each is reported as skipped, with the reason).
+ENGINES = ("node", "r", "libreoffice", "pspp", "chromium")
+
+
+def verify_bundle(bundle: str | Path, *, quiet: bool = False, skip: tuple[str, ...] = ()) -> list[Check]:
+    """Every check, in order; ``skip``: engines (of :data:`ENGINES`) not to start."""
+    from .engine_checks import collaborator_checks
+    unknown = [e for e in skip if e not in ENGINES]
+    if unknown:
+        raise InputError(f"--skip {unknown[0]}: not an engine verify starts; choose from {', '.join(ENGINES)}")
     manifest = read_manifest(bundle)
     checks = [_checksums(bundle, manifest)]
     if not checks[0].ok:
         return checks
     ref = read_reference(bundle, manifest)
     checks += _onnx_checks(bundle, manifest, ref)
-    checks += _node_onnx_checks(bundle, manifest, ref, quiet=quiet)
-    checks += _code_checks(bundle, manifest, ref)
+    if "node" in skip:
+        checks += [Check(f"{m}.onnx (onnxruntime-node, Node.js)", True, None, None, "skipped: --skip node",
+                         skipped=True) for m in MODELS]
+    else:
+        checks += _node_onnx_checks(bundle, manifest, ref, quiet=quiet)
+    checks += _code_checks(bundle, manifest, ref, skip_node="node" in skip)
+    checks += collaborator_checks(bundle, manifest, ref, skip)
     for extra in EXTRA_CHECKS:
         checks += extra(bundle, manifest, ref)
     return checks

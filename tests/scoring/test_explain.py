@@ -7,16 +7,20 @@ surrogate (scikit-learn user guide, "Understanding the decision tree structure")
 """
 from __future__ import annotations
 
+import io
+
 import numpy as np
 import pandas as pd
 import pytest
 
+import pocketforest as pf
 from pocketforest.design import model_frame
-from pocketforest.explain import Explainer, equation_columns
 from pocketforest.intake import prepare
 from pocketforest.pipeline import Settings, distill
+from pocketforest.scoring.bundle_io import read_manifest
+from pocketforest.scoring.explain import Explainer, equation_columns
 
-from conftest import synthetic_table
+from conftest import run_cli, synthetic_table
 
 
 @pytest.fixture(scope="module", params=[("regression", 2), ("classification", 3)], ids=["regression", "multiclass"])
@@ -80,3 +84,53 @@ def test_tree_paths_are_the_trees_own_decision_paths(run):
     np.testing.assert_array_equal(leaf, r.tree.model.apply(X))
     texts = Explainer(path).tree(rows)["tree_path"]
     assert all(t.startswith('"') and t.endswith(f"leaf {i}") for t, i in zip(texts, leaf))
+
+
+def test_score_explain_writes_contributions_that_sum_to_the_linear_predictor(run, tmp_path):
+    r, path = run
+    rows = _rows(r)
+    rows.insert(0, "id", range(len(rows)))
+    rows.to_csv(tmp_path / "rows.csv", index=False)
+    out = tmp_path / "why.csv"
+    p = run_cli("score", str(path), str(tmp_path / "rows.csv"), "--model", "equation", "--explain",
+                "--keep", "id", "--out", str(out), "-q")
+    assert p.returncode == 0, p.stderr
+    got = pd.read_csv(out)
+    assert got["id"].tolist() == list(range(len(rows)))
+    m = read_manifest(path)
+    eta_names, part_names = equation_columns(m)
+    blocks = len(eta_names)
+    parts = got[part_names].to_numpy().reshape(len(got), blocks, -1)
+    eta = got[eta_names].to_numpy()
+    # the CSV holds each double to 17 significant digits; the sum is in another order only
+    np.testing.assert_allclose(parts.sum(axis=2), eta, rtol=0, atol=1e-12 * max(1.0, np.abs(parts).max()))
+    if m["task"] == "regression":
+        # prediction is the same double eta rounded once to float32: half a float32 ulp
+        np.testing.assert_allclose(got["prediction"], eta[:, 0], rtol=2.0 ** -23, atol=1e-30)
+    else:
+        full = np.column_stack([np.zeros(len(got)), eta])
+        p = np.exp(full - full.max(1, keepdims=True))
+        p /= p.sum(1, keepdims=True)
+        # probabilities are float32 roundings of the graph's double softmax: one float32 ulp at 1
+        np.testing.assert_allclose(got[[f"prob_{c}" for c in m["classes"]]], p, rtol=0, atol=2.0 ** -23)
+
+
+def test_score_explain_tree_and_the_api_agree(run, tmp_path):
+    r, path = run
+    rows = _rows(r)
+    rows.to_csv(tmp_path / "rows.csv", index=False)
+    p = run_cli("score", str(path), str(tmp_path / "rows.csv"), "--model", "tree", "--explain", "-q")
+    assert p.returncode == 0, p.stderr
+    got = pd.read_csv(io.StringIO(p.stdout), keep_default_na=False)
+    api = pf.load_bundle(path).explain(rows)
+    np.testing.assert_array_equal(got["tree_leaf"], api["tree_leaf"])
+    assert got["tree_path"].tolist() == api["tree_path"].tolist()
+    eta_names, part_names = equation_columns(read_manifest(path))
+    assert list(api.columns) == eta_names + part_names + ["tree_leaf", "tree_path"]
+
+
+def test_the_forest_has_no_short_reason(run, tmp_path):
+    _, path = run
+    (tmp_path / "rows.csv").write_text("x1,x2\n0.1,0.2\n")
+    p = run_cli("score", str(path), str(tmp_path / "rows.csv"), "--model", "forest", "--explain")
+    assert p.returncode == 2 and p.stderr.startswith("error:") and "--model equation" in p.stderr

@@ -12,7 +12,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .export.workbook import CELL_PREFIX
+from ..export.workbook import CELL_PREFIX
 from .runners import RunnerFailed
 
 
@@ -74,7 +74,7 @@ def paste_workbook(book: Path, text: str, ref: pd.DataFrame, manifest: dict, out
     from openpyxl.utils import get_column_letter
     from openpyxl.workbook.defined_name import DefinedName
 
-    from .export.workbook import cell_text, text_cell, write_rows
+    from ..export.workbook import cell_text, text_cell, write_rows
 
     shown = {cell_text(f["name"]): f for f in manifest["features"]}   # headers as the cells hold them
     try:

@@ -23,7 +23,7 @@ import numpy as np
 import pandas as pd
 
 from .bundle_io import read_manifest
-from .errors import BundleError
+from ..errors import BundleError
 from .runtime import Scorer, feeds
 
 INTERCEPT = "(intercept)"

@@ -21,7 +21,7 @@ import pandas as pd
 
 from . import engines, runners
 from .bundle_io import bundle_file
-from .export.spss import spss_names
+from ..export.spss import spss_names
 from .verify import CODE_PROB_ATOL, CODE_RTOL, Check, compare_predictions
 
 #: Engines a caller may skip (``verify --skip``): slow to start or absent on a slim machine.
