@@ -95,12 +95,26 @@ def print_expr(node: Node, d: Dialect, inputs: Inputs) -> str:
 
 
 def equation_inputs(eq, feature_order: list[str]) -> list[tuple[str, str]]:
-    """(name, kind) of the inputs the equation reads, in the data's column order."""
-    probe = Inputs()
-    d = Dialect(number=str, text=str, is_level=lambda var, lit: var, square=str, pos=str, log=str)
+    """(name, kind) of the inputs the equation reads, in the data's column order. Walks the nodes'
+    fields generically, so a new node kind needs no change here."""
+    from dataclasses import fields, is_dataclass
+
+    kinds: dict[str, str] = {}
+
+    def walk(node) -> None:
+        if isinstance(node, Num):
+            kinds[node.feature] = "numeric"
+        elif isinstance(node, Is):
+            kinds[node.feature] = "categorical"
+        elif is_dataclass(node):
+            for f in fields(node):
+                value = getattr(node, f.name)
+                for item in (value if isinstance(value, tuple) else (value,)):
+                    if isinstance(item, Node):
+                        walk(item)
+
     for c in eq.columns:
-        print_expr(c.node, d, probe)
-    kinds = {r.feature: r.kind for r in probe}
+        walk(c.node)
     return [(n, kinds[n]) for n in feature_order if n in kinds]
 
 
