@@ -64,8 +64,9 @@ def synthetic_table(n: int = 600, seed: int = 1, task: str = "regression", n_cla
 
 
 @pytest.fixture(scope="session")
-def bundles(tmp_path_factory) -> dict[str, Path]:
-    """Bundles for regression, two classes and three classes, fitted once per test session."""
+def fitted(tmp_path_factory) -> dict[str, tuple]:
+    """(Distillation, bundle path) for regression, two classes and three classes, fitted once per
+    test session; tests that compare a bundle with its fitted objects use the Distillation."""
     from pocketforest.intake import prepare
     from pocketforest.pipeline import Settings, distill
 
@@ -76,5 +77,11 @@ def bundles(tmp_path_factory) -> dict[str, Path]:
         df = synthetic_table(task=task, n_classes=k)
         table = prepare(df, "y", source=f"{name}.csv")
         result = distill(table, Settings(trees=60, seed=3, quiet=True, bootstrap=200))
-        out[name] = Path(result.write(base / name))
+        out[name] = (result, Path(result.write(base / name)))
     return out
+
+
+@pytest.fixture(scope="session")
+def bundles(fitted) -> dict[str, Path]:
+    """The bundles of :func:`fitted`, by name."""
+    return {name: path for name, (_, path) in fitted.items()}

@@ -241,3 +241,15 @@ def test_calculator_shows_names_and_classes_as_text(hostile_bundle, tmp_path):
             driver.switch_to.alert.text
     finally:
         driver.quit()
+
+
+def test_explanations_keep_hostile_names_as_text(hostile_bundle):
+    """score --explain writes names into its columns and cells: never as something a spreadsheet
+    opening the CSV would run (OWASP, "CSV Injection": cells starting with =, +, - or @)."""
+    from pocketforest.scoring.explain import Explainer, equation_columns
+    _, bundle, _ = hostile_bundle
+    ex = Explainer(bundle)
+    texts = ex.rule_texts().values()
+    assert texts and all(t[0].isalpha() or t[0] in '_"' for t in texts)
+    eta, parts = equation_columns(ex.manifest)
+    assert all(c.startswith(("linear_predictor", "contribution")) for c in eta + parts)

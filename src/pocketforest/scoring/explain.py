@@ -18,6 +18,7 @@ class's log-odds against the first).
 from __future__ import annotations
 
 import json
+import re
 
 import numpy as np
 import pandas as pd
@@ -27,6 +28,11 @@ from ..errors import BundleError
 from .runtime import Scorer, feeds
 
 INTERCEPT = "(intercept)"
+_PLAIN = re.compile(r"^[A-Za-z_][A-Za-z0-9_.]*$")
+
+
+def _shown(text: str) -> str:
+    return text if _PLAIN.match(text) else json.dumps(text, ensure_ascii=False)
 
 
 def equation_columns(manifest: dict) -> tuple[list[str], list[str]]:
@@ -126,8 +132,9 @@ class Explainer:
         return ~(x <= np.float32(node["threshold"]))
 
     def rule_texts(self) -> dict[int, str]:
-        """Leaf id → the rules that lead to it, e.g. ``"x" <= 0.5; "colour" = "red"; leaf 7``.
-        Names and levels are JSON strings, so the text cannot be mistaken for a formula or split."""
+        """Leaf id → the rules that lead to it, e.g. ``x <= 0.5; colour = red; leaf 7``. A name or
+        level that is not a plain word is written as a JSON string (``"two words" = "a;b"``), so the
+        text splits unambiguously and never starts like a spreadsheet formula."""
         nodes = self._tree()
         out: dict[int, str] = {}
 
@@ -136,9 +143,9 @@ class Explainer:
             if "feature" not in node:
                 out[i] = "; ".join(conds + [f"leaf {i}"])
                 return
-            name = json.dumps(node["feature"], ensure_ascii=False)
+            name = _shown(node["feature"])
             if "level" in node:
-                level = json.dumps(node["level"], ensure_ascii=False)
+                level = _shown(node["level"])
                 walk(node["left"], conds + [f"{name} != {level}"])
                 walk(node["right"], conds + [f"{name} = {level}"])
             else:
