@@ -163,13 +163,17 @@ def test_scoring_snippets_follow_the_bundle_files(with_terms):
     from pocketforest.report import render_report
     r, m = with_terms
     full = {"forest.onnx", "tree.onnx", "equation.onnx", "equation.txt", "tree.txt", "reference.csv",
-            "equation.sql", "equation.py", "equation.js", "tree.sql", "tree.py", "tree.js", "equation.tex"}
+            "equation.sql", "equation.py", "equation.js", "tree.sql", "tree.py", "tree.js", "equation.tex",
+            "equation.R", "tree.R", "equation.sps", "equation.xlsx", "calculator.html"}
     s = _sections(render_report(r, m, full))["elsewhere"]
     for needle in ("forest.onnx", ".read equation.sql", "or tree.sql", "spec_from_file_location(\"equation\"",
-                   "require(\"./equation.js\")", "reference.csv", "pocketforest verify ."):
+                   "require(\"./equation.js\")", "reference.csv", "pocketforest verify .",
+                   "source(&quot;equation.R&quot;)", "pocketforest_tree$predict", "INSERT FILE='equation.sps'",
+                   "equation.xlsx", "calculator.html", "--explain"):
         assert needle in s, needle
     bare = _sections(render_report(r, m, {"forest.onnx", "tree.onnx", "equation.onnx", "reference.csv"}))
     assert "equation.sql" not in bare["elsewhere"] and "require(" not in bare["elsewhere"]
+    assert "equation.R" not in bare["elsewhere"] and "equation.sps" not in bare["elsewhere"]
     assert "no SQL, Python or JavaScript" in bare["elsewhere"] and "forest.onnx" in bare["elsewhere"]
     assert "equation.tex" not in bare["equation"]
 
