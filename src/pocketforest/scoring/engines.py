@@ -266,7 +266,6 @@ def open_page(path: Path, workdir: Path):
     profile.mkdir(parents=True, exist_ok=True)
     for flag in CHROMIUM_FLAGS + (f"--user-data-dir={profile.resolve()}",):
         opts.add_argument(flag)
-    os.environ.setdefault("SE_AVOID_STATS", "true")  # selenium: no usage statistics
     try:
         driver = webdriver.Chrome(service=Service(executable_path=driver_path), options=opts)
     except Exception as exc:  # selenium raises its own types for a browser that will not start
