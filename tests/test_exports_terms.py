@@ -41,8 +41,8 @@ KINDS = {
     "quadratic": [Term("linear", ["x1"]), Term("quadratic", ["x1"], {"centre": 0.1})],
     "hinge_above": [Term("linear", ["x2"]), Term("hinge", ["x2"], {"knot": 0.2, "direction": "above"})],
     "hinge_below": [Term("linear", ["x2"]), Term("hinge", ["x2"], {"knot": -0.3, "direction": "below"})],
-    "log": [Term("log", ["pos"])],
-    "log_shift": [Term("log", ["pos"], {"shift": 0.25})],
+    "log": [Term("log", ["pos"], {"floor": 0.5})],          # pos > 0.5 in the data: the guard never acts
+    "log_floor": [Term("log", ["pos"], {"floor": 1.0})],    # half the rows below the floor
     "categorical": [Term("categorical", ["colour"])],
     "num_x_num": [Term("linear", ["x2"]), Term("linear", ["x3"]),
                   Term("interaction", ["x2", "x3"], {"centres": {"x2": 0.05, "x3": -0.1}, "power": 1})],
@@ -178,7 +178,7 @@ def test_each_term_kind_in_every_equation_form(kind, tmp_path):
 def test_all_kinds_together_for_classification(k, tmp_path):
     terms = [Term("linear", ["x1"]), Term("quadratic", ["x1"], {"centre": 0.0}),
              Term("linear", ["x2"]), Term("hinge", ["x2"], {"knot": 0.1, "direction": "above"}),
-             Term("log", ["pos"], {"shift": 0.1}), Term("categorical", ["colour"]), Term("categorical", ["site"]),
+             Term("log", ["pos"], {"floor": 1.0}), Term("categorical", ["colour"]), Term("categorical", ["site"]),
              Term("interaction", ["x2", "colour"], {"centres": {"x2": 0.0}})]
     eq, table = _fit(terms, task="classification", k=k)
     rows = _fresh_rows()

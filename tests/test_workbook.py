@@ -30,7 +30,7 @@ needs_lo = pytest.mark.skipif(shutil.which("soffice") is None, reason="LibreOffi
 ALL_KINDS = [Term("linear", ["x1"]), Term("quadratic", ["x1"], {"centre": 0.0}),
              Term("linear", ["x2"]), Term("hinge", ["x2"], {"knot": 0.1, "direction": "above"}),
              Term("hinge", ["x2"], {"knot": -0.3, "direction": "below"}),
-             Term("log", ["pos"], {"shift": 0.1}), Term("categorical", ["colour"]), Term("categorical", ["site"]),
+             Term("log", ["pos"], {"floor": 1.0}), Term("categorical", ["colour"]), Term("categorical", ["site"]),
              Term("interaction", ["x2", "colour"], {"centres": {"x2": 0.0}}),
              Term("interaction", ["x2", "x3"], {"centres": {"x2": 0.05, "x3": -0.1}, "power": 2})]
 HOSTILE = ['=HYPERLINK("http://x","y")', "+cmd|' /C calc'!A0", "@SUM(1+1)", "-1+2", 'say "x"\nnext', "plain"]

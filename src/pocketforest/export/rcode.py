@@ -154,6 +154,15 @@ _FAMILIES = {("gaussian", "identity"): "gaussian(link = \"identity\")", ("poisso
              ("binomial", "logit"): "binomial(link = \"logit\")"}
 
 
+def refit_call(family: str) -> str:
+    """How to refit the same terms in R: glm() where base R has the family."""
+    if family == "multinomial":
+        return "nnet::multinom(pocketforest_equation$FORMULA, data = d)   # several classes: not glm()"
+    if family == "negative_binomial":
+        return "MASS::glm.nb(pocketforest_equation$FORMULA, data = d)   # estimates the dispersion too"
+    return "glm(pocketforest_equation$FORMULA, family = pocketforest_equation$FAMILY, data = d)"
+
+
 def equation_r(eq, meta: dict) -> str:
     inputs = Inputs()
     design = [print_expr(c.node, R, inputs) for c in eq.columns]
@@ -172,9 +181,7 @@ def equation_r(eq, meta: dict) -> str:
     usage = ["# Score:   source(\"equation.R\"); pocketforest_equation$predict(my_data)",
              "# Refit the same terms on your own rows (inputs imputed as here, the outcome as y):",
              "#   d <- pocketforest_equation$refit_data(my_rows)",
-             ("#   fit <- glm(pocketforest_equation$FORMULA, family = pocketforest_equation$FAMILY, data = d)"
-              if family else
-              "#   fit <- nnet::multinom(pocketforest_equation$FORMULA, data = d)   # several classes: not glm()"),
+             "#   fit <- " + refit_call(eq.family),
              "#   cbind(exported = pocketforest_equation$COEFFICIENTS, refitted = coef(fit))"]
     lines = _header("equation", meta, usage)
     lines += [f"  FAMILY_NAME <- {r_str(eq.family)}",

@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import html
 
-from ..export.rcode import r_str
+from ..export.rcode import refit_call, r_str
 
 
 def _e(x) -> str:
@@ -29,13 +29,9 @@ def collaborator_snippets(m: dict, row: dict, present) -> list[str]:
                  "pocketforest_equation$predict(new_rows)"]
         if present("tree.R"):
             lines.append("pocketforest_tree$predict(new_rows)")
-        if m["equation"]["family"] != "multinomial":
-            lines += ["# the same terms refitted on your own rows (with the outcome column):",
-                      "# glm(pocketforest_equation$FORMULA, family = pocketforest_equation$FAMILY,",
-                      "#     data = pocketforest_equation$refit_data(my_rows))"]
-        else:
-            lines += ["# the same terms refitted on your own rows (several classes: nnet, not glm):",
-                      "# nnet::multinom(pocketforest_equation$FORMULA, data = pocketforest_equation$refit_data(my_rows))"]
+        lines += ["# the same terms refitted on your own rows (with the outcome column):",
+                  "# d <- pocketforest_equation$refit_data(my_rows)",
+                  "# fit <- " + refit_call(m["equation"]["family"])]
         parts += ["<h3>R (base R, no packages)</h3>", "<pre><code>" + _e("\n".join(lines)) + "</code></pre>"]
     if present("equation.sps"):
         renamed = [(f["name"], f["spss_name"]) for f in m["features"] if f.get("spss_name") not in (None, f["name"])]
