@@ -123,18 +123,33 @@ def test_forest_curve_for_a_category_finds_the_planted_effect(with_terms):
 
 
 def test_stored_discovery_curve_is_used(with_terms):
+    """The panel reads the fields discovery writes (kind, grid, pd, scale), nothing else."""
     from pocketforest.report.shapes import shape_curves
     r, m = with_terms
     grid = [-0.5, 0.0, 0.5]
-    r.discovery.shapes = {"x1": {"grid": grid, "values": [1.0, 2.0, 3.0]}}
+    r.discovery.shapes = {"x1": {"kind": "numeric", "grid": grid, "pd": [1.0, 2.0, 3.0], "scale": "value"}}
     try:
         (c,) = shape_curves(r, m, ["x1"])
     finally:
         r.discovery.shapes = {}
-    # both lines centred, so the stored curve's own convention does not matter
+    # both lines centred, so the stored curve's own level does not matter
     assert c["source"] == "discovery step" and c["forest"] == [[-1.0, 0.0, 1.0]] and c["grid"] == grid
     # centred: three values summing to zero within ~3 * eps * |value|
     assert len(c["equation"][0]) == 3 and abs(sum(c["equation"][0])) < 1e-9 and "centred" in c["scale"]
+
+
+def test_stored_curve_on_another_scale_is_not_drawn_as_a_probability(with_terms):
+    """A classification curve is stored as log-odds while the panel compares probabilities, so the
+    report computes its own curve rather than draw log-odds beside a probability."""
+    from pocketforest.report.shapes import shape_curves
+    r, m = with_terms
+    r.discovery.shapes = {"x1": {"kind": "numeric", "grid": [-0.5, 0.0, 0.5], "pd": [1.0, 2.0, 3.0],
+                                 "scale": "log-odds"}}
+    try:
+        (c,) = shape_curves(r, m, ["x1"])
+    finally:
+        r.discovery.shapes = {}
+    assert c["source"] == "computed for this report" and len(c["grid"]) > 3
 
 
 @pytest.mark.skipif(chromium() is None, reason="no Chromium on PATH (CI installs the Debian package "
