@@ -87,6 +87,15 @@ def test_report_with_suggested_terms(with_terms):
     assert "interaction with colour" in s["shapes"]
 
 
+def test_equation_section_shows_the_manifest_note(with_terms):
+    """The page reads ``equation.note``, the key the bundle writes, and escapes it once."""
+    from pocketforest.report import render_report
+    r, m = with_terms
+    m2 = {**m, "equation": {**m["equation"], "note": "Estimated on rows <b>& kept</b> apart."}}
+    eq = _sections(render_report(r, m2))["equation"]
+    assert "Estimated on rows &lt;b&gt;&amp; kept&lt;/b&gt; apart." in eq
+
+
 def test_equation_curve_is_its_own_partial_dependence(with_terms):
     """Constructed truth: with x2 entering as b·x2 + c·max(0, x2 − 0.2) + d·x2·x3, the equation's
     partial dependence on x2 has slope b + d·mean(x3) below the knot and b + c + d·mean(x3) above."""

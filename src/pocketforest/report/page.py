@@ -347,9 +347,8 @@ def _equation(r, m: dict, files: set[str] | None = None) -> str:
                      "main-effects equation in rows that did not choose them.</p>")
     else:
         parts.append("<p>No terms beyond the main effects were suggested, so there is no block to test.</p>")
-    notes = list(eq.get("notes") or []) + [n for n in getattr(r.equation, "notes", []) if n not in (eq.get("notes") or [])]
-    if notes:
-        parts.append("<ul class='warn'>" + "".join(f"<li>{_e(n)}</li>" for n in notes) + "</ul>")
+    if eq.get("note"):
+        parts.append(f"<p class='note'>{_e(eq['note'])}</p>")
     return "".join(parts)
 
 
