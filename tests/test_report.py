@@ -207,3 +207,24 @@ def test_a_failing_section_is_reported_in_place(with_terms, capsys):
     assert "could not be drawn" in s["interactions"] and "manifest.json" in s["interactions"]
     assert "<svg" in s["importance"] and "<svg" in s["tree"]
     assert "report section 'interactions' could not be drawn" in capsys.readouterr().err
+
+
+@pytest.mark.parametrize("name", ["regression", "multiclass"])
+def test_interaction_table_puts_figures_in_columns(bundles, name):
+    """One row per measured pair with H², strength, null, threshold and kept in their own cells;
+    the threshold's rule is said once under the table, and nothing is escaped twice."""
+    import json
+    page = (bundles[name] / "report.html").read_text(encoding="utf-8")
+    m = json.loads((bundles[name] / "manifest.json").read_text(encoding="utf-8"))
+    sec = _sections(page)["interactions"]
+    pairs = [i for i in m["interactions"] if len(i["variables"]) == 2]
+    assert pairs, "the synthetic table has material pairs to measure"
+    head = re.search(r"<thead>(.*?)</thead>", sec).group(1)
+    for label in ("H²", "strength", "null H²", "null strength", "threshold", "kept"):
+        assert f">{label}<" in head, label
+    assert sec.count("<tr>") == len(pairs) + 1
+    assert "&amp;#" not in sec and "&amp;amp;" not in sec
+    rule = pairs[0]["threshold_rule"]
+    assert sec.count(rule.replace("'", "&#x27;")) == 1
+    kept = sum(1 for i in pairs if i["kept"])
+    assert len(re.findall(r"<td class=l>yes</td>", sec)) == kept

@@ -260,21 +260,47 @@ def _shapes(r, m: dict) -> str:
             + "<div class='grid'>" + "".join(panels) + "</div>")
 
 
+_PAIR_COLUMNS = [("h2", "H²"), ("strength", "strength"), ("null_h2", "null H²"),
+                 ("null_strength", "null strength"), ("strength_threshold", "threshold")]
+
+
+def _yes_no(v) -> str:
+    return "–" if v is None else ("yes" if v else "no")
+
+
 def _interactions(m: dict) -> str:
     inter = [i for i in (m.get("interactions") or []) if len(i.get("variables", [])) == 2]
     if not inter:
         return _absent("The discovery step measured no pair of variables in this bundle, so there is "
                        "no interaction matrix; the equation holds main effects only.")
     fig = plots.interaction_plot(inter)
+    products = any("product" in it for it in inter)
+    head = ["pair", "kind"] + [label for _, label in _PAIR_COLUMNS] + ["kept"] + (["product R²"] if products else [])
     rows = []
     for it in sorted(inter, key=lambda i: -(i.get("h2") or 0)):
-        extra = {k: v for k, v in it.items() if k not in ("variables", "h2") and isinstance(v, (int, float, bool, str))}
-        rows.append([" × ".join(it["variables"]), it.get("h2"),
-                     "; ".join(f"{k.replace('_', ' ')} {_num(v) if isinstance(v, float) else _e(v)}" for k, v in extra.items())])
+        row = [" × ".join(it["variables"]), it.get("kind", "–")] + [it.get(k) for k, _ in _PAIR_COLUMNS]
+        row.append(_yes_no(it.get("kept")))
+        if products:
+            row.append((it.get("product") or {}).get("r2_product"))
+        rows.append(row)
+    about = []
+    rules = list(dict.fromkeys(it["threshold_rule"] for it in inter if it.get("threshold_rule")))
+    if rules:
+        about.append("Threshold: " + "; ".join(_e(rule) for rule in rules) + ".")
+    sizes = sorted({int(it["rows"]) for it in inter if it.get("rows") is not None})
+    if sizes:
+        about.append("Measured on " + " or ".join(str(n) for n in sizes) + " discovery rows.")
+    if products:
+        about.append("Product R²: the share of a kept numeric pair's interaction surface that a centred "
+                     "product of the two columns recovers.")
+    legend = ("<p class='note'>Strength: the root mean square of the pair's joint effect beyond the two "
+              "separate effects, relative to the spread of the forest's predictions. The null columns are the same figures in a forest grown on an additive version "
+              "of the data, where any interaction is noise. Kept: the pair was put forward as a term for "
+              "the equation. " + " ".join(about) + "</p>")
     return (_figure(fig, "Friedman &amp; Popescu's H² for each measured pair (2008, eq. 44): the share of the "
                     "pair's joint partial dependence not explained by the two variables separately. H² is "
                     "large for pairs whose joint effect is tiny, so read it beside the pair's strength.")
-            + _table(["pair", "H²", "other measures"], rows))
+            + _table(head, rows) + legend)
 
 
 def _present(files: set[str] | None, name: str) -> bool:
