@@ -228,3 +228,19 @@ def test_interaction_table_puts_figures_in_columns(bundles, name):
     assert sec.count(rule.replace("'", "&#x27;")) == 1
     kept = sum(1 for i in pairs if i["kept"])
     assert len(re.findall(r"<td class=l>yes</td>", sec)) == kept
+
+
+def test_screening_table_and_correlated_groups_come_from_typed_records(with_terms):
+    """The shadow check per variable and the correlated groups are drawn from the manifest's
+    records (no note text is read): one row per variable, one per group."""
+    from pocketforest.report import render_report
+    r, m = with_terms
+    mat = m["discovery"]["materiality"]
+    groups = [{"variables": ["x1", "x2", "x3"], "min_abs_spearman": 0.91}, {"variables": ["a b", "c"], "min_abs_spearman": 0.95}]
+    m2 = {**m, "discovery": {**m["discovery"], "materiality": {**mat, "correlated_groups": groups}}}
+    sec = _sections(render_report(r, m2))["importance"]
+    table = sec[sec.index("Does each variable beat its shadow?"):]
+    first = table[:table.index("</table>")]
+    assert first.count("<tr>") == len(mat["variables"]) + 1
+    assert "Strongly correlated columns" in sec and "<td class=l>a b, c</td>" in sec and ">0.95<" in sec
+    assert "Strongly correlated columns" not in _sections(render_report(r, m))["importance"]

@@ -219,8 +219,42 @@ def _importance(m: dict) -> str:
     caption = ("Out-of-bag permutation importance (Breiman 2001): for each tree, the error on the rows its "
                "bootstrap left out, before and after shuffling one raw column. Bars are means over trees; "
                "whiskers ±1.96 standard errors." + (" Only the top 20 are drawn." if len(imp) > 20 else ""))
-    return _figure(fig, caption) + _table(["variable", "importance", "standard error"],
-                                          [[i["feature"], i["mean"], i["se"]] for i in imp])
+    return (_figure(fig, caption) + _table(["variable", "importance", "standard error"],
+                                           [[i["feature"], i["mean"], i["se"]] for i in imp])
+            + _screening((m.get("discovery") or {}).get("materiality") or {}))
+
+
+def _screening(mat: dict) -> str:
+    """The shadow-column check per variable, and groups of strongly correlated columns, from the
+    typed records discovery keeps in the manifest: the detail behind the notes, in columns."""
+    variables = mat.get("variables") or {}
+    if not variables:
+        return ""
+    rows = []
+    for name, ev in variables.items():
+        held = ev.get("held_out") or {}
+        rows.append([name, ev.get("shadow_forest_importance"), ev.get("null_threshold"), ev.get("z"),
+                     held.get("importance"), held.get("largest_shadow"),
+                     _yes_no(held.get("above_shadows")) if held else "–", ev.get("decision", "–")])
+    rule = (mat.get("rule") or {}).get("rule")
+    parts = ["<h3>Does each variable beat its shadow?</h3>",
+             "<p>A second forest grows on part of the discovery rows beside a shuffled copy (shadow) of "
+             "every column; a column matters when its out-of-bag importance there clears the shadows. "
+             "The remaining discovery rows repeat the check with held-out permutation importance."
+             + (f" Rule: {_e(rule)}." if rule else "") + "</p>",
+             _table(["variable", "out-of-bag", "null threshold", "mean / se", "held-out", "largest shadow",
+                     "held-out beats shadows", "decision"], rows)]
+    groups = mat.get("correlated_groups") or []
+    if groups:
+        keys = list(dict.fromkeys(k for g in groups for k, v in g.items()
+                                  if k != "variables" and isinstance(v, (int, float)) and not isinstance(v, bool)))
+        parts += ["<h3>Strongly correlated columns</h3>",
+                  "<p>Importance is shared out within each group, and partial dependence extrapolates for "
+                  "its members, so their shapes come from accumulated local effects.</p>",
+                  _table(["group", "columns"] + [k.replace("_", " ") for k in keys],
+                         [[str(i + 1), ", ".join(g.get("variables") or [])] + [g.get(k) for k in keys]
+                          for i, g in enumerate(groups)])]
+    return "".join(parts)
 
 
 def _term_text(t, var: str) -> str:
