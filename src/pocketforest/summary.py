@@ -39,11 +39,29 @@ def _f(v, fmt: str) -> str:
     return "–" if v is None else format(v, fmt)
 
 
+GAP = "    "  # between the text columns (fidelity, loss) and their neighbours
+
+
+def _columns(rows: list[list[str]], right: list[bool]) -> list[str]:
+    """Rows of cells as lines, each column as wide as its widest cell (header included), numbers
+    right-aligned, text left-aligned, at least two spaces between any two cells."""
+    widths = [max(len(r[i]) for r in rows) for i in range(len(rows[0]))]
+    lines = []
+    for r in rows:
+        cells = []
+        for i, (cell, w) in enumerate(zip(r, widths)):
+            text = cell.rjust(w) if right[i] else cell.ljust(w)
+            sep = "" if i == 0 else ("  " if right[i] else GAP)
+            cells.append(sep + text)
+        lines.append("".join(cells).rstrip())
+    return lines
+
+
 def format_summary(d: dict) -> str:
-    """Text form of :func:`summary_dict`."""
+    """Text form of :func:`summary_dict`: every column sized to its contents, so large values
+    (a salary's rmse, a count's mae) never run into their neighbours."""
     ev = d["evaluation"]
     names = list(ev["forest"].keys())
-    width = max(10, *(len(n) + 2 for n in names))
     sp = d["splits"]
     lines = [f"pocketforest: {d['target']} ({d['task']}); rows {sp['discovery']} discovery / "
              f"{sp['confirmation']} confirmation / {sp['test']} test"]
@@ -56,17 +74,14 @@ def format_summary(d: dict) -> str:
         lo = d["loss"][m]
         loss[m] = (f"{lo['metric']} {_f(lo['value'], '+.4f')} "
                    f"({_f(lo['ci_low'], '+.4f')} to {_f(lo['ci_high'], '+.4f')})")
-    fid_w = max(len("fidelity"), *(len(v) for v in fid.values()))
-    loss_w = max(len("loss (95% interval)"), *(len(v) for v in loss.values()))
     on = (f"on {ev['n']} test rows" if ev.get("on") == "test"
           else f"{ev.get('repeats')}x{ev.get('folds')}-fold CV")
-    head = (f"{on:<16}" + "".join(f"{n:>{width}}" for n in names)
-            + f"    {'fidelity':<{fid_w}}    {'loss (95% interval)':<{loss_w}}")
-    head = head.rstrip()
-    lines += [head, "-" * len(head)]
-    for m in MODELS:
-        row = f"{m:<16}" + "".join(f"{_f(ev[m][n], '.4f'):>{width}}" for n in names)
-        lines.append((row + f"    {fid[m]:<{fid_w}}    {loss[m]:<{loss_w}}").rstrip())
+    rows = [[on] + names + ["fidelity", "loss (95% interval)"]]
+    rows += [[m] + [_f(ev[m][n], ".4f") for n in names] + [fid[m], loss[m]] for m in MODELS]
+    right = [False] + [True] * len(names) + [False, False]
+    table = _columns(rows, right)
+    rule = "-" * max(len(line) for line in table)
+    lines += [table[0], rule] + table[1:]
     lines += ["", f"equation: {d['formula']}", f"tree:     depth {d['tree']['depth']}, {d['tree']['leaves']} leaves"]
     if d.get("warnings"):
         n = len(d["warnings"])
