@@ -116,3 +116,35 @@ def test_columns_are_sized_to_their_contents(task, metrics, fidelity, loss_metri
         row = next(line for line in table if line.startswith(model + " "))
         assert "    " + ", ".join(f"{k} {v:.3f}" for k, v in fidelity.items()) + "    " in row
         assert row.endswith(f"{loss_metric} -1234.5000 (-99999.2500 to +0.0627)")
+
+
+@pytest.fixture(scope="module")
+def fitted():
+    """Small notebook-style fits (pocketforest.fit) for the result's own text."""
+    import pocketforest as pf
+    return {task: pf.fit(synthetic_table(n=300, seed=8, task=task, n_classes=k), "y", n_trees=20, random_state=1)
+            for task, k in (("regression", 2), ("classification", 3))}
+
+
+@pytest.mark.parametrize("task", ["regression", "classification"])
+def test_result_summary_holds_scoreboard_formula_and_coefficients(fitted, task):
+    from pocketforest.summary import format_summary, result_dict, result_text
+    r = fitted[task]
+    text = result_text(r)
+    assert text.startswith(format_summary(result_dict(r)))       # the scoreboard the command line prints
+    assert f"equation: {r.equation.formula}" in text and "bundle:" not in text
+    coefficients = text.split("\ncoefficients: ", 1)[1].splitlines()
+    for row in r.equation.table:
+        line = next(line for line in coefficients if f" {row['term']} " in f" {line} "
+                    and (row.get("class") is None or line.startswith(row["class"] + " ")))
+        assert f"{row['estimate']:.4g}" in line and f"{row['p_value']:.3g}" in line
+
+
+@pytest.mark.parametrize("task", ["regression", "classification"])
+def test_result_repr_is_one_short_line(fitted, task):
+    from pocketforest.summary import result_line
+    r = fitted[task]
+    line = result_line(r)
+    key = r.loss["tree"]["metric"]
+    assert "\n" not in line and len(line) < 160 and line.startswith("<Distillation ")
+    assert f"equation {r.evaluation['equation'][key]:.3f}" in line

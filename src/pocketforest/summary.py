@@ -1,8 +1,10 @@
-"""The terminal summary after `distill`, and its JSON twin for ``--json``.
+"""The terminal summary after `distill`, its JSON twin for ``--json``, and the text of
+``Distillation.summary()`` and ``repr`` for a notebook.
 
 The text is printed from the dictionary that ``--json`` prints, so the two always show the same
 numbers: a compact scoreboard, the surrogates' fidelity and loss with intervals, the formula, the
-bundle path and the command that opens the report.
+bundle path and the command that opens the report. ``summary()`` shows the same scoreboard for a
+result not yet written, with the equation's coefficients, as a statsmodels results summary does.
 """
 from __future__ import annotations
 
@@ -24,14 +26,18 @@ def open_command(report: str, platform: str | None = None) -> str:
     return f"xdg-open {quoted}"
 
 
-def summary_dict(r, path: str) -> dict:
-    report = str(Path(path) / "report.html")
-    return {"bundle": path, "task": r.table.task, "target": r.table.target, "splits": r.splits.sizes(),
+def result_dict(r) -> dict:
+    """The numbers of a :class:`~pocketforest.pipeline.Distillation`, before any bundle exists."""
+    return {"task": r.table.task, "target": r.table.target, "splits": r.splits.sizes(),
             "oob": r.forest.oob, "evaluation": r.evaluation, "fidelity": r.fidelity, "loss": r.loss,
             "formula": r.equation.formula, "tree": {"depth": r.tree.depth, "leaves": r.tree.leaves},
             "importance": [i.to_dict() for i in r.importance], "warnings": r.warnings,
-            "plan": r.plan.to_dict() if r.plan is not None else None,
-            "report": report, "open_report": open_command(report),
+            "plan": r.plan.to_dict() if r.plan is not None else None}
+
+
+def summary_dict(r, path: str) -> dict:
+    report = str(Path(path) / "report.html")
+    return {"bundle": path, **result_dict(r), "report": report, "open_report": open_command(report),
             "verify": f"pocketforest verify {shlex.quote(path)}"}
 
 
@@ -86,9 +92,44 @@ def format_summary(d: dict) -> str:
     if d.get("warnings"):
         n = len(d["warnings"])
         lines.append(f"notes:    {n} (data and fitting notes; all in the report's first section)")
-    lines += ["", f"bundle:   {d['bundle']}", f"report:   {d['open_report']}", f"check:    {d['verify']}"]
+    if "bundle" in d:
+        lines += ["", f"bundle:   {d['bundle']}", f"report:   {d['open_report']}", f"check:    {d['verify']}"]
     return "\n".join(lines)
 
 
 def summary_text(r, path: str) -> str:
     return format_summary(summary_dict(r, path))
+
+
+def _coefficients(eq) -> list[str]:
+    """The equation's coefficient table (confirmation rows), columns sized to their contents."""
+    has_class = bool(eq.table) and "class" in eq.table[0]
+    head = (["class"] if has_class else []) + ["term", "estimate", "std error", "95% low", "95% high", "p"]
+    rows = [head] + [([c["class"]] if has_class else [])
+                     + [c["term"]] + [_f(c[k], ".4g") for k in ("estimate", "std_error", "ci_low", "ci_high")]
+                     + [_f(c["p_value"], ".3g")] for c in eq.table]
+    right = ([False] if has_class else []) + [False] + [True] * 5
+    table = _columns(rows, right)
+    return [table[0], "-" * max(len(line) for line in table)] + table[1:]
+
+
+def result_text(r) -> str:
+    """What ``Distillation.summary()`` returns: the scoreboard, fidelity and loss, the formula, the
+    tree's size and the equation's coefficients, as text (numbers as in the ``--json`` output)."""
+    eq = r.equation
+    lines = [format_summary(result_dict(r)), "",
+             f"coefficients: {eq.family} GLM, {eq.link} link, on the {eq.fit_on} rows (n = {eq.n})"]
+    lines += _coefficients(eq)
+    bt = eq.block_test
+    if bt:
+        lines.append(f"block test of the suggested terms: statistic {_f(bt.get('statistic'), '.4g')}, "
+                     f"df {bt.get('df')}, p = {_f(bt.get('p_value'), '.3g')}")
+    return "\n".join(lines)
+
+
+def result_line(r) -> str:
+    """One short line for ``repr(Distillation)``: what was fitted and how well the surrogates did."""
+    key = r.loss["tree"]["metric"]
+    scores = ", ".join(f"{m} {_f(r.evaluation[m].get(key), '.3f')}" for m in MODELS)
+    return (f"<Distillation {r.table.task} of {r.table.target!r}: test {key} {scores}; "
+            f"{len(r.equation.terms)} terms, tree of {r.tree.leaves} leaves>")
