@@ -9,6 +9,7 @@ from __future__ import annotations
 import json
 
 from ..expr import num_literal
+from ..intake import MISSING_TOKENS
 from ..thresholds import double_split
 from .dialect import Dialect, Inputs, linear_predictors, plain_number
 from .tree_spec import TreeNode
@@ -22,8 +23,7 @@ JS = Dialect(number=plain_number, text=js_str,
              is_level=lambda var, lit: f"({var} === {lit} ? 1.0 : 0.0)",
              square=lambda a: f"_sq({a})", pos=lambda a: f"_pos({a})", log=lambda a: f"Math.log({a})")
 
-_HELPERS = r'''var _MISSING_TEXT = ["", "NA", "N/A", "NaN", "nan", "null", "NULL", "None"];
-
+_HELPERS = r'''
 function _value(row, name) {
   if (!Object.prototype.hasOwnProperty.call(row, name)) {
     throw new Error("input column " + JSON.stringify(name) + " is missing from the row (pass null for a missing value)");
@@ -99,7 +99,13 @@ def _header(kind: str, meta: dict) -> list[str]:
             f"var CLASSES = [{', '.join(js_str(c) for c in classes)}];",
             f"var TOOL_VERSION = {js_str(meta['tool_version'])};",
             "",
+            _missing_text(),
             _HELPERS]
+
+
+def _missing_text() -> str:
+    """The cell texts that mean "missing", read from intake's one list (so they cannot drift)."""
+    return "var _MISSING_TEXT = [" + ", ".join(js_str(t) for t in sorted(MISSING_TOKENS)) + "];"
 
 
 def _bind(inputs: Inputs) -> list[str]:

@@ -7,6 +7,7 @@ a comment.
 from __future__ import annotations
 
 from ..expr import num_literal
+from ..intake import MISSING_TOKENS
 from ..thresholds import double_split
 from .dialect import Dialect, Inputs, linear_predictors, plain_number
 from .tree_spec import TreeNode
@@ -20,8 +21,7 @@ PY = Dialect(number=plain_number, text=py_str,
              is_level=lambda var, lit: f"(1.0 if {var} == {lit} else 0.0)",
              square=lambda a: f"_sq({a})", pos=lambda a: f"_pos({a})", log=lambda a: f"_log({a})")
 
-_HELPERS = '''_MISSING_TEXT = frozenset({"", "NA", "N/A", "NaN", "nan", "null", "NULL", "None"})
-
+_HELPERS = '''
 
 def _value(row, name):
     if name not in row:
@@ -107,7 +107,13 @@ def _header(kind: str, meta: dict) -> list[str]:
             f"CLASSES = ({''.join(py_str(c) + ', ' for c in classes)})",
             f"TOOL_VERSION = {py_str(meta['tool_version'])}",
             "",
+            _missing_text(),
             _HELPERS]
+
+
+def _missing_text() -> str:
+    """The cell texts that mean "missing", read from intake's one list (so they cannot drift)."""
+    return "_MISSING_TEXT = frozenset({" + ", ".join(py_str(t) for t in sorted(MISSING_TOKENS)) + "})"
 
 
 def _bind(inputs: Inputs) -> list[str]:
