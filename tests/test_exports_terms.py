@@ -168,3 +168,54 @@ def test_extreme_scores_give_probabilities_not_errors(tmp_path):
     # saturated scores give exactly 0 or 1 in double; the others differ by rounding only (~1e-15)
     for form, res in _code_outputs(eq, table, rows, tmp_path).items():
         np.testing.assert_allclose(res["probabilities"], want, atol=1e-12, err_msg=form)
+
+
+def _missing_where_not_finite(values: np.ndarray) -> np.ndarray:
+    """The documented outcome (README, "Equation values that are not finite"): missing (NaN)."""
+    values = np.asarray(values, dtype=float)
+    return np.where(np.isfinite(values), values, np.nan)
+
+
+def test_huge_inputs_and_logs_of_non_positive_values_agree_in_every_form(tmp_path):
+    """An input of 1e30 in a squared term is the same finite number in every form (ONNX computes
+    and returns double precision, so nothing overflows float32), and the log of a value <= 0 is a
+    missing prediction everywhere: NaN from ONNX and numpy, None from Python, null from
+    JavaScript, NULL from SQL."""
+    eq, table = _fit([Term("linear", ["x1"]), Term("quadratic", ["x1"], {"centre": 0.1}), Term("log", ["pos"])])
+    rows = _fresh_rows().head(8).copy()
+    rows["x1"] = [1e30, -1e30, 3.4e38, 0.2, 0.3, 1e20, 0.1, 0.5]
+    rows["pos"] = [1.0, 2.0, 1.0, 0.0, -2.0, 1.0, np.nan, 1.5]
+    want = eq.predict(rows)
+    assert np.isfinite(want[[0, 1, 2, 5, 6, 7]]).all() and np.isnan(want[[3, 4]]).all()
+    assert abs(want[0]) > 1e59   # beyond float32's largest value, 3.4e38
+    got = _onnx_outputs(eq, table, rows)["prediction"].reshape(-1)
+    assert got.dtype == np.float64
+    # the inputs enter ONNX as float32 (relative rounding <= 2**-24 each, doubled by the square):
+    # 1e-6 relative, and 1e-6 absolute for the predictions of order one
+    np.testing.assert_allclose(got, want, rtol=1e-6, atol=1e-6)
+    for form, res in _code_outputs(eq, table, rows, tmp_path).items():
+        # double precision throughout; summation order and libm differ at most in the last bits
+        np.testing.assert_allclose(res["prediction"], want, rtol=1e-12, atol=1e-12, err_msg=form)
+
+
+def test_log_link_overflow_is_missing_in_every_form(tmp_path):
+    """A Poisson equation's mean exp(eta) overflows a double for eta above about 709.78: the
+    prediction is missing in every form, as is any other value that is not finite."""
+    df = _data("regression")
+    rng = np.random.default_rng(5)
+    df["y"] = rng.poisson(np.exp(0.5 * df["x1"])).astype(float)
+    table = prepare(df, "y", source="counts.csv")
+    kinds = {f.name: f.kind for f in table.features}
+    fills = {f.name: (float(np.nanmedian(table.data[f.name].astype(float))) if f.kind == "numeric" else "")
+             for f in table.features}
+    eq = fit_equation([Term("linear", ["x1"])], table.data, table.data["y"].to_numpy(dtype=float),
+                      task="regression", target="y", fills=fills, kinds=kinds, classes=None, family="poisson",
+                      fit_on="all")
+    rows = _fresh_rows().head(4).copy()
+    rows["x1"] = [0.5, 1e6, -1e6, 3e38]
+    want = _missing_where_not_finite(eq.predict(rows))
+    assert np.isnan(want[[1, 3]]).all() and np.isfinite(want[[0, 2]]).all()
+    got = _onnx_outputs(eq, table, rows)["prediction"].reshape(-1)
+    np.testing.assert_allclose(got, want, rtol=1e-6, atol=1e-6)   # float32 inputs, as above
+    for form, res in _code_outputs(eq, table, rows, tmp_path).items():
+        np.testing.assert_allclose(res["prediction"], want, rtol=1e-12, atol=1e-12, err_msg=form)

@@ -90,7 +90,9 @@ def evaluate(node: Node, data: pd.DataFrame) -> np.ndarray:
     if isinstance(node, Pos):
         return np.maximum(evaluate(node.arg, data), 0.0)
     if isinstance(node, Log):
-        return np.log(evaluate(node.arg, data))
+        a = evaluate(node.arg, data)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return np.where(a > 0, np.log(np.where(a > 0, a, 1.0)), np.nan)  # NaN, never -inf, for a <= 0
     raise TypeError(f"unknown node {node!r}")
 
 

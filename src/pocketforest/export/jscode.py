@@ -21,7 +21,7 @@ def js_str(value: str) -> str:
 
 JS = Dialect(number=plain_number, text=js_str,
              is_level=lambda var, lit: f"({var} === {lit} ? 1.0 : 0.0)",
-             square=lambda a: f"_sq({a})", pos=lambda a: f"_pos({a})", log=lambda a: f"Math.log({a})")
+             square=lambda a: f"_sq({a})", pos=lambda a: f"_pos({a})", log=lambda a: f"_log({a})")
 
 _HELPERS = r'''
 function _value(row, name) {
@@ -56,6 +56,10 @@ function _cat(row, name) {
 
 function _sq(v) { return v * v; }
 function _pos(v) { return v > 0.0 ? v : 0.0; }
+// NaN for v <= 0 (only beyond the training range): the prediction is then missing
+function _log(v) { return v > 0.0 ? Math.log(v) : NaN; }
+// a value that is not a finite number (a log of v <= 0, an overflow) is missing: null
+function _finite(v) { return Number.isFinite(v) ? v : null; }
 
 function _probabilities(etas) {
   // softmax written as 1 / sum(exp(e_j - e_k)): no overflow for large scores
@@ -64,6 +68,12 @@ function _probabilities(etas) {
     for (var j = 0; j < etas.length; j++) s += Math.exp(etas[j] - k);
     return 1.0 / s;
   });
+}
+
+function _missing() {
+  var probabilities = {};
+  for (var k = 0; k < CLASSES.length; k++) probabilities[CLASSES[k]] = null;
+  return { label: null, probabilities: probabilities };
 }
 
 function _result(p) {
@@ -91,6 +101,8 @@ def _header(kind: str, meta: dict) -> list[str]:
     return ["// pocketforest " + kind + " export: call predict(row) with an object keyed by column name.",
             "// A missing value is null. Regression returns a number; classification returns",
             "// {label, probabilities: {class: p, ...}}. Target, task and classes are given below as data.",
+            *(["// Where the equation has no finite value, the prediction (label, probabilities) is null."]
+              if kind == "equation" else []),
             f"// Defines predict and pocketforest_{kind} (so equation.js and tree.js can share one page).",
             f"var pocketforest_{kind} = (function () {{",
             '"use strict";',
@@ -124,11 +136,12 @@ def equation_js(eq, meta: dict) -> str:
     lines = _header("equation", meta) + ["// " + eq.source_line, "function predict(row) {"] + _bind(inputs)
     if eq.task == "regression":
         lines.append(f"  var eta = {etas[0]};")
-        lines.append("  return eta;" if eq.link == "identity" else "  return Math.exp(eta);")
+        lines.append("  return _finite(eta);" if eq.link == "identity" else "  return _finite(Math.exp(eta));")
     else:
         lines.append("  var etas = [0.0];")
         for e in etas:
             lines.append(f"  etas.push({e});")
+        lines.append("  if (!etas.every(Number.isFinite)) return _missing();")
         lines.append("  return _result(_probabilities(etas));")
     lines.append("}")
     return "\n".join(lines) + "\n" + _FOOTER.format(kind="equation")

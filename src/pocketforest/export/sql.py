@@ -81,24 +81,33 @@ def _argmax_case(scores: list[str], labels: list[str]) -> str:
     return "CASE " + " ".join(whens) + f" ELSE {sql_string(labels[-1])} END"
 
 
+#: The largest finite double; ``ABS(v) <= LARGEST`` is false for ±inf, NaN (DuckDB) and NULL.
+LARGEST = "1.7976931348623157e308"
+
+
 def equation_sql(eq, meta: dict) -> str:
     return "-- " + eq.source_line + "\n" + _equation_sql(eq, meta)
 
 
 def _equation_sql(eq, meta: dict) -> str:
+    """Where the equation has no finite value (the log of a value <= 0, an overflow) every output
+    is NULL, as every other form gives a missing prediction there."""
     inputs = Inputs(prefix="i.")
     etas = linear_predictors(eq, SQL, inputs)
     inner = _read_inputs(inputs)
     if eq.task == "regression":
         value = "e.eta_1" if eq.link == "identity" else "EXP(e.eta_1)"
         scores = f"SELECT {etas[0]} AS eta_1 FROM ({inner}) AS i"
-        return _statement("equation", [("prediction", f"SELECT {value} FROM ({scores}) AS e")])
+        means = f"SELECT {value} AS mean FROM ({scores}) AS e"
+        return _statement("equation", [("prediction", f"SELECT CASE WHEN ABS(m.mean) <= {LARGEST} THEN m.mean END "
+                                                      f"FROM ({means}) AS m")])
     names = ["0.0e0"] + [f"e.eta_{k + 1}" for k in range(len(etas))]
+    finite = " AND ".join(f"ABS({n}) <= {LARGEST}" for n in names[1:])
     scores = "SELECT " + ", ".join(f"{x} AS eta_{k + 1}" for k, x in enumerate(etas)) + f" FROM ({inner}) AS i"
-    outputs = [("label", f"SELECT {_argmax_case(names, eq.classes)} FROM ({scores}) AS e")]
+    outputs = [("label", f"SELECT CASE WHEN {finite} THEN {_argmax_case(names, eq.classes)} END FROM ({scores}) AS e")]
     for k, cls in enumerate(eq.classes):
         denom = " + ".join(f"EXP({names[j]} - {names[k]})" for j in range(len(names)))
-        outputs.append((f"prob_{cls}", f"SELECT 1.0e0 / ({denom}) FROM ({scores}) AS e"))
+        outputs.append((f"prob_{cls}", f"SELECT CASE WHEN {finite} THEN 1.0e0 / ({denom}) END FROM ({scores}) AS e"))
     return _statement("equation", outputs)
 
 
