@@ -219,3 +219,22 @@ def test_log_link_overflow_is_missing_in_every_form(tmp_path):
     np.testing.assert_allclose(got, want, rtol=1e-6, atol=1e-6)   # float32 inputs, as above
     for form, res in _code_outputs(eq, table, rows, tmp_path).items():
         np.testing.assert_allclose(res["prediction"], want, rtol=1e-12, atol=1e-12, err_msg=form)
+
+
+def test_generated_graph_names_never_meet_an_input_name():
+    """Columns named 1, 2, ... reach ONNX as inputs c_1, c_2, ...; the graph's own constants are
+    also numbered names, and once took an input's name (found by tests/test_fuzz.py)."""
+    rng = np.random.default_rng(3)
+    df = pd.DataFrame({str(k): rng.normal(size=200) for k in range(1, 13)})
+    df["y"] = df["1"] - 2 * df["9"] + rng.normal(0, 0.1, 200)
+    table = prepare(df, "y", source="numbered.csv")
+    assert {f.onnx_input for f in table.features} >= {"c_1", "c_9", "c_12"}
+    kinds = {f.name: f.kind for f in table.features}
+    fills = {f.name: 0.0 for f in table.features}
+    terms = [Term("linear", [str(k)]) for k in range(1, 13)]
+    eq = fit_equation(terms, table.data, table.data["y"].to_numpy(dtype=float), task="regression", target="y",
+                      fills=fills, kinds=kinds, classes=None, fit_on="all")
+    rows = df.drop(columns="y").head(20)
+    got = _onnx_outputs(eq, table, rows)["prediction"].reshape(-1)
+    # float32 inputs of order one: 1e-6 (as in test_each_term_kind_in_every_equation_form)
+    np.testing.assert_allclose(got, eq.predict(rows), rtol=1e-6, atol=1e-6)

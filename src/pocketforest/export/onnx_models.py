@@ -94,10 +94,15 @@ class _GraphBuilder:
         self.count = 0
         self.inputs = {f.name: f for f in features}
         self.cache: dict = {}
+        # an input may be called "c_9" (a column named 9): generated names must never meet one
+        self.taken = {f.onnx_input for f in features} | {"prediction", "label", "probabilities"}
 
     def name(self, stem: str) -> str:
-        self.count += 1
-        return f"{stem}_{self.count}"
+        while True:
+            self.count += 1
+            name = f"{stem}_{self.count}"
+            if name not in self.taken:
+                return name
 
     def const(self, value, dtype=np.float64) -> str:
         arr = np.asarray(value, dtype=dtype) if dtype is not object else np.asarray(value, dtype=object)
