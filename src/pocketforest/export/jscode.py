@@ -9,7 +9,7 @@ from __future__ import annotations
 import json
 
 from ..expr import num_literal
-from ..intake import MISSING_TOKENS
+from ..intake.values import MISSING_TOKENS
 from ..thresholds import double_split
 from .dialect import Dialect, Inputs, linear_predictors, plain_number
 from .tree_spec import TreeNode

@@ -7,7 +7,7 @@ a comment.
 from __future__ import annotations
 
 from ..expr import num_literal
-from ..intake import MISSING_TOKENS
+from ..intake.values import MISSING_TOKENS
 from ..thresholds import double_split
 from .dialect import Dialect, Inputs, linear_predictors, plain_number
 from .tree_spec import TreeNode

@@ -13,7 +13,7 @@ in exponent form (``2.5e0``) so DuckDB reads them as DOUBLE rather than DECIMAL.
 from __future__ import annotations
 
 from ..expr import num_literal, sql_ident, sql_string
-from ..intake import MISSING_TOKENS
+from ..intake.values import MISSING_TOKENS
 from ..thresholds import double_split
 from .dialect import Dialect, Inputs, linear_predictors
 from .tree_spec import TreeNode
