@@ -169,24 +169,3 @@ def test_tuned_sessions_give_the_same_predictions(bundles):
     # one row on one thread vs a batch on the default threads: float32 sums of 60 trees' votes in
     # possibly another order, <= 60 * 2^-24 ~ 3.6e-6 relative; rtol 1e-5
     np.testing.assert_allclose(one_by_one, outs[0][:3], rtol=1e-5)
-
-
-@pytest.mark.parametrize("name", ["regression", "multiclass"])
-def test_single_row_path_matches_batch(bundles, name):
-    """Scorer.predict_row (no pandas, for single-row latency) gives the batch results."""
-    bundle = bundles[name]
-    manifest = json.loads((bundle / "manifest.json").read_text())
-    ref = pd.read_csv(bundle / "reference.csv", keep_default_na=False, na_values=[""],
-                      dtype={f["name"]: str for f in manifest["features"] if f["kind"] == "categorical"})
-    names = [f["name"] for f in manifest["features"]]
-    rows = [{k: (None if isinstance(v, float) and np.isnan(v) else v) for k, v in r.items()}
-            for r in ref[names].to_dict("records")]
-    scorer = Scorer(bundle, "forest", latency=True)
-    batch = scorer.run(ref)
-    one = [scorer.predict_row(r) for r in rows]
-    if manifest["task"] == "regression":
-        np.testing.assert_array_equal(np.array(one), batch["prediction"])
-    else:
-        assert [o["label"] for o in one] == list(batch["label"])
-        np.testing.assert_array_equal([[o["probabilities"][c] for c in manifest["classes"]] for o in one],
-                                      batch["probabilities"])

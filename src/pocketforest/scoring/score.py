@@ -29,7 +29,6 @@ from .bundle_io import read_manifest
 from .runtime import Scorer, envelope_count
 
 CHUNK_ROWS = 20_000  # a 100,000-row chunk of text cells peaked near 250 MB; 20,000 near 45 MB
-OUTPUTS = ("prediction", "label", "inputs_outside_training")
 
 
 def features_of(manifest: dict) -> list[Feature]:
