@@ -212,7 +212,7 @@ def test_two_distill_runs_on_one_out_folder(tmp_path):
     import sys
 
     from conftest import SRC
-    from pocketforest.bundle_io import read_manifest, sha256
+    from pocketforest.scoring.bundle_io import read_manifest, sha256
     src = tmp_path / "d.csv"
     synthetic_table(n=300, seed=2).to_csv(src, index=False)
     out = tmp_path / "bundle"

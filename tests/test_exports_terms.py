@@ -238,3 +238,23 @@ def test_generated_graph_names_never_meet_an_input_name():
     got = _onnx_outputs(eq, table, rows)["prediction"].reshape(-1)
     # float32 inputs of order one: 1e-6 (as in test_each_term_kind_in_every_equation_form)
     np.testing.assert_allclose(got, eq.predict(rows), rtol=1e-6, atol=1e-6)
+
+
+@pytest.mark.parametrize("k", [2, 3])
+def test_classification_without_a_finite_score_is_missing_in_every_form(k, tmp_path):
+    """A log term of a value <= 0 leaves the class scores without a value: every form returns
+    no label ("" from ONNX, None/null/NULL from the code forms, read as "") and missing
+    probabilities, instead of a label chosen from NaNs."""
+    eq, table = _fit([Term("linear", ["x1"]), Term("log", ["pos"])], task="classification", k=k)
+    rows = _fresh_rows().head(5).copy()
+    rows["pos"] = [1.0, 0.0, -1.0, 2.0, np.nan]
+    want = _missing_where_not_finite(eq.predict(rows))
+    gone = np.isnan(want).any(axis=1)
+    assert list(gone) == [False, True, True, False, False]
+    labels = np.where(gone, "", np.asarray(eq.classes)[np.nan_to_num(want).argmax(1)])
+    got = _onnx_outputs(eq, table, rows)
+    np.testing.assert_allclose(got["probabilities"], want, atol=1e-6)   # float32 probabilities
+    np.testing.assert_array_equal(got["label"], labels)
+    for form, res in _code_outputs(eq, table, rows, tmp_path).items():
+        np.testing.assert_allclose(res["probabilities"], want, atol=1e-12, err_msg=form)
+        np.testing.assert_array_equal(res["label"], labels, err_msg=form)

@@ -21,7 +21,7 @@ from .export.onnx_models import convert_pipeline, equation_model
 from .export.text import equation_text, tree_text
 from .export.tree_spec import tree_nodes
 from .export.tree_svg import fidelity_note, tree_svg
-from .reference import pick_rows, with_predictions
+from .reference import pick_rows, reference_csv, with_predictions
 
 
 
@@ -62,9 +62,9 @@ def build_files(r, created: str) -> tuple[dict[str, bytes], dict]:
                                  note=fidelity_note(r.fidelity["tree"], r.evaluation.get("on"))).encode()
     for name, text in _code_exports(r, nodes).items():
         files[name] = text.encode()
-    rows = pick_rows(r.table.data, features, r.splits.test, r.settings.seed)
+    rows, spellings = pick_rows(r.table.data, features, r.splits.test, r.settings.seed)
     ref = with_predictions(rows, r.predict, task, classes)
-    files["reference.csv"] = ref.to_csv(index=False, float_format=None, lineterminator="\n").encode()
+    files["reference.csv"] = reference_csv(ref, features, spellings)
     manifest = _manifest(r, created, nodes)
     return files, manifest
 
