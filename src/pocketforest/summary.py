@@ -48,7 +48,7 @@ def _f(v, fmt: str) -> str:
 GAP = "    "  # between the text columns (fidelity, loss) and their neighbours
 
 
-def _columns(rows: list[list[str]], right: list[bool]) -> list[str]:
+def aligned_columns(rows: list[list[str]], right: list[bool]) -> list[str]:
     """Rows of cells as lines, each column as wide as its widest cell (header included), numbers
     right-aligned, text left-aligned, at least two spaces between any two cells."""
     widths = [max(len(r[i]) for r in rows) for i in range(len(rows[0]))]
@@ -85,7 +85,7 @@ def format_summary(d: dict) -> str:
     rows = [[on] + names + ["fidelity", "loss (95% interval)"]]
     rows += [[m] + [_f(ev[m][n], ".4f") for n in names] + [fid[m], loss[m]] for m in MODELS]
     right = [False] + [True] * len(names) + [False, False]
-    table = _columns(rows, right)
+    table = aligned_columns(rows, right)
     rule = "-" * max(len(line) for line in table)
     lines += [table[0], rule] + table[1:]
     lines += ["", f"equation: {d['formula']}", f"tree:     depth {d['tree']['depth']}, {d['tree']['leaves']} leaves"]
@@ -109,7 +109,7 @@ def _coefficients(eq) -> list[str]:
                      + [c["term"]] + [_f(c[k], ".4g") for k in ("estimate", "std_error", "ci_low", "ci_high")]
                      + [_f(c["p_value"], ".3g")] for c in eq.table]
     right = ([False] if has_class else []) + [False] + [True] * 5
-    table = _columns(rows, right)
+    table = aligned_columns(rows, right)
     return [table[0], "-" * max(len(line) for line in table)] + table[1:]
 
 

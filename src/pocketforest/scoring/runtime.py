@@ -69,6 +69,7 @@ class Scorer:
                  threads: int | None = None, latency: bool = False):
         if model not in MODELS:
             raise InputError(f"--model '{model}' is not one of {', '.join(MODELS)}")
+        self.model = model
         self.manifest = manifest or read_manifest(bundle)
         path = bundle_file(bundle, self.manifest, f"{model}.onnx", check=check)
         try:
