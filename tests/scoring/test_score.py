@@ -169,3 +169,12 @@ def test_tuned_sessions_give_the_same_predictions(bundles):
     # one row on one thread vs a batch on the default threads: float32 sums of 60 trees' votes in
     # possibly another order, <= 60 * 2^-24 ~ 3.6e-6 relative; rtol 1e-5
     np.testing.assert_allclose(one_by_one, outs[0][:3], rtol=1e-5)
+
+
+def test_keep_name_with_the_header_cell_spaces_is_found(bundles, tmp_path):
+    """Header names are read stripped, so ``--keep " row_id "`` means column row_id."""
+    data = _new_rows().rename(columns={"row_id": " row_id "})
+    data.to_csv(tmp_path / "a.csv", index=False)
+    score_file(str(bundles["regression"]), str(tmp_path / "a.csv"), "tree", str(tmp_path / "p.csv"),
+               keep=[" row_id "], quiet=True)
+    assert list(pd.read_csv(tmp_path / "p.csv").columns)[:2] == ["row_id", "prediction"]

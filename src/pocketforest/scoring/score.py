@@ -113,7 +113,7 @@ def score_file(bundle: str, data: str, model: str, out: str | None, keep: list[s
     manifest = read_manifest(bundle)
     scorer = Scorer(bundle, model, manifest)
     features = features_of(manifest)
-    keep = list(dict.fromkeys(keep or []))
+    keep = list(dict.fromkeys(k.strip() for k in keep or []))   # header names are read stripped
     _check_out(out)
     names = ["prediction"] if manifest["task"] == "regression" else ["label"] + [f"prob_{c}" for c in manifest["classes"]]
     clash = [k for k in keep if k in names + ["inputs_outside_training"]]
