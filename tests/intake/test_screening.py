@@ -139,6 +139,16 @@ def test_infinite_feature_value():
     raises(r"column 'x' has infinite values \(line 6\)", prepare, df, "y")
 
 
+def test_feature_value_beyond_float32_is_refused():
+    """The models take float32 inputs (largest 3.4028235e38, IEEE 754 binary32): 1e39 would reach
+    them as an infinity, and scikit-learn refused it with a traceback (found by testing 1e39)."""
+    df = frame()
+    df.loc[7, "x"] = "-1e39"
+    raises(r"column 'x' has values beyond ±3\.4e38 \(line 9\).*32-bit", prepare, df, "y")
+    df.loc[7, "x"] = "3.4e38"        # just inside: accepted
+    assert prepare(df, "y").features[0].name == "x"
+
+
 def test_drops_ignored_constant_missing_and_id_like():
     df = frame()
     df.insert(0, "row", [str(i + 1) for i in range(N)])
