@@ -4,8 +4,8 @@ For each kind the equation is fitted with statsmodels (through ``fit_equation``)
 graph (onnxruntime), the SQL (SQLite and DuckDB), the Python export (separate isolated
 interpreter) and the JavaScript export (Node.js) are run on fresh rows that include missing
 values, an unseen category and values outside the training range. The reference is
-``EquationFit.predict`` (numpy, double precision); ONNX computes in double inside and returns
-float32, the code forms compute in double.
+``EquationFit.predict`` (numpy, double precision); ONNX computes in double from float32 inputs and
+returns double (probabilities as float32), the code forms compute in double.
 """
 from __future__ import annotations
 
@@ -120,9 +120,10 @@ def test_each_term_kind_in_every_equation_form(kind, tmp_path):
     want = eq.predict(rows)
     assert np.isfinite(want).all()
     got = _onnx_outputs(eq, table, rows)["prediction"].reshape(-1)
-    # The graph computes in double from float32 inputs and rounds the result to float32 once: from
-    # the same float32 inputs the only gap is that rounding, at most half a float32 ulp (2^-24
-    # relative); rtol one ulp (2^-23), atol for double summation order near zero (~k * eps).
+    # The graph computes and returns double from float32 inputs: from the same float32 inputs only
+    # the summation order differs (~k * eps). rtol one float32 ulp (2^-23) bounds it with room (it
+    # also bounded the float32 rounding of the output, before the output became double); atol for
+    # double summation order near zero.
     want32 = eq.predict(_as_float32_inputs(rows))
     np.testing.assert_allclose(got, want32, rtol=2.0 ** -23, atol=1e-12 * max(1.0, np.abs(want32).max()))
     # The code forms compute in double from the double inputs: only summation order and libm's last

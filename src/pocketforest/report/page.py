@@ -532,7 +532,8 @@ def _elsewhere(m: dict, files: set[str] | None) -> str:
                  if m["task"] == "regression" else
                  "<code>label_&lt;model&gt;</code> and <code>prob_&lt;model&gt;_&lt;class&gt;</code>")
     parts += ["<h3>Check your runtime against the reference rows</h3>",
-              f"<p><code>reference.csv</code> holds input rows (every category, and rows with missing values) with "
+              f"<p><code>reference.csv</code> holds input rows (every category, and rows with missing values, the last "
+              "ones spelled as missing-value texts such as <code>NA</code>) with "
               f"each model's prediction as computed by the fitting libraries: {pred_cols}. Score those rows "
               "with your runtime and compare: values should agree to about 1e-4 (ONNX tree ensembles compute in "
               "float32). Where pocketforest is installed, one command checks every form and every checksum:</p>",
