@@ -178,3 +178,23 @@ def test_keep_name_with_the_header_cell_spaces_is_found(bundles, tmp_path):
     score_file(str(bundles["regression"]), str(tmp_path / "a.csv"), "tree", str(tmp_path / "p.csv"),
                keep=[" row_id "], quiet=True)
     assert list(pd.read_csv(tmp_path / "p.csv").columns)[:2] == ["row_id", "prediction"]
+
+
+def test_an_error_in_a_later_chunk_closes_the_input_file(bundles, tmp_path):
+    """The input is closed when scoring stops on bad text, not left for the garbage collector
+    (the fuzz test saw the ResourceWarning of an unclosed file)."""
+    import gc
+    import warnings
+
+    from pocketforest.errors import InputError
+    data = _new_rows().astype({"x1": object})
+    data.loc[40, "x1"] = "oops"
+    data.to_csv(tmp_path / "a.csv", index=False)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        with pytest.raises(InputError, match="oops"):
+            score_file(str(bundles["regression"]), str(tmp_path / "a.csv"), "forest", str(tmp_path / "p.csv"),
+                       quiet=True, chunk_rows=10)
+        gc.collect()
+    assert not [w for w in caught if issubclass(w.category, ResourceWarning)], [str(w.message) for w in caught]
+    assert not (tmp_path / "p.csv").exists()

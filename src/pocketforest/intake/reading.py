@@ -83,15 +83,18 @@ def iter_table(
         names, kwargs = _csv_selection(header, columns, sep)
         with _csv_errors(p, sep, header):
             reader = pd.read_csv(p, chunksize=chunksize, **kwargs)
-        while True:
-            # the warnings filter must not stay active while the caller runs, so enter per chunk
-            with _csv_errors(p, sep, header):
-                chunk = next(reader, None)
-            if chunk is None:
-                break
-            chunk = _finish_csv_frame(chunk.reset_index(drop=True), names, p)
-            yield first, chunk
-            first += len(chunk)
+        try:
+            while True:
+                # the warnings filter must not stay active while the caller runs, so enter per chunk
+                with _csv_errors(p, sep, header):
+                    chunk = next(reader, None)
+                if chunk is None:
+                    break
+                chunk = _finish_csv_frame(chunk.reset_index(drop=True), names, p)
+                yield first, chunk
+                first += len(chunk)
+        finally:
+            reader.close()   # also when the caller stops early (an error in a later chunk)
     if first == 0:
         raise InputError(f"{p}: has a header but no data rows: add rows below the header")
 

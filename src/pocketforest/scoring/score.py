@@ -120,7 +120,7 @@ def score_file(bundle: str, data: str, model: str, out: str | None, keep: list[s
     if clash:
         raise InputError(f"--keep column '{clash[0]}' has the name of an output column: rename it in {data}")
     stray = _Stray(features)
-    tmp_path, sink, total = None, None, 0
+    tmp_path, sink, total, chunks = None, None, 0, None
     try:
         if out is not None:
             fd, tmp_path = tempfile.mkstemp(prefix=".pf-score-", suffix=Path(out).suffix.lower(),
@@ -129,7 +129,8 @@ def score_file(bundle: str, data: str, model: str, out: str | None, keep: list[s
             if tmp_path.endswith(".parquet"):
                 sink = _ParquetSink(tmp_path)
         wanted = [f.name for f in features] + keep
-        for first_row, chunk in iter_table(data, chunksize=chunk_rows, columns=wanted):
+        chunks = iter_table(data, chunksize=chunk_rows, columns=wanted)
+        for first_row, chunk in chunks:
             if first_row == 0:
                 absent = [k for k in keep if k not in chunk.columns]
                 if absent:
@@ -156,6 +157,8 @@ def score_file(bundle: str, data: str, model: str, out: str | None, keep: list[s
             os.replace(tmp_path, out)
             tmp_path = None
     finally:
+        if chunks is not None:
+            chunks.close()   # the input file is closed now, not when the generator is collected
         if sink is not None:
             sink.close()
         if tmp_path is not None and os.path.exists(tmp_path):
