@@ -259,3 +259,22 @@ def test_classification_without_a_finite_score_is_missing_in_every_form(k, tmp_p
     for form, res in _code_outputs(eq, table, rows, tmp_path).items():
         np.testing.assert_allclose(res["probabilities"], want, atol=1e-12, err_msg=form)
         np.testing.assert_array_equal(res["label"], labels, err_msg=form)
+
+
+@pytest.mark.parametrize("task, k", [("regression", 2), ("classification", 2), ("classification", 3)])
+def test_intercept_only_equation_in_every_form(task, k, tmp_path):
+    """No variable earned a term: the equation is its intercept, and every form still gives one
+    value per row (equation.onnx once failed to build; found by tests/test_fuzz.py)."""
+    eq, table = _fit([], task=task, k=k)
+    assert not eq.columns
+    rows = _fresh_rows().head(7)
+    want = eq.predict(rows)
+    got = _onnx_outputs(eq, table, rows)
+    if task == "regression":
+        # one double intercept plus zeros: exact
+        np.testing.assert_allclose(got["prediction"].reshape(-1), want, rtol=1e-12)
+    else:
+        np.testing.assert_allclose(got["probabilities"], want, atol=1e-6)   # float32 probabilities
+    for form, res in _code_outputs(eq, table, rows, tmp_path).items():
+        key = "prediction" if task == "regression" else "probabilities"
+        np.testing.assert_allclose(res[key], want, rtol=1e-12, atol=1e-12, err_msg=form)

@@ -166,6 +166,17 @@ class _GraphBuilder:
             return self.op("Where", [positive, self.op("Log", [a]), self.const([[np.nan]])])
         raise TypeError(f"unknown node {node!r}")
 
+    def zero_column(self) -> str:
+        """Zeros, one per row of the first input (whatever its values), for an intercept-only
+        equation: a 0/1 flag of the input times 0."""
+        f = next(iter(self.inputs.values()))
+        if f.kind == "numeric":
+            flag = self.op("IsNaN", [f.onnx_input])
+        else:
+            codes, _ = self.level_codes(f.name)
+            flag = self.op("Equal", [codes, self.const([[0]], np.int64)])
+        return self.op("Mul", [self.op("Cast", [flag], to=TensorProto.DOUBLE), self.const([[0.0]])])
+
     def missing_if_not_finite(self, x: str) -> str:
         """NaN where ``x`` is ±inf (NaN stays NaN): the prediction is missing there."""
         return self.op("Where", [self.op("IsInf", [x]), self.const([[np.nan]]), x])
@@ -175,8 +186,12 @@ def equation_model(eq: EquationFit, features: list[Feature], metadata: dict) -> 
     """The GLM as a graph: raw inputs → imputed terms → linear predictor → inverse link."""
     g = _GraphBuilder(features)
     cols = [g.emit(c.node) for c in eq.columns]
-    design = g.op("Concat", cols, axis=1) if len(cols) > 1 else cols[0]
     coef = np.asarray(eq.coef, dtype=np.float64)
+    if not cols:
+        # intercept only (no variable earned a term): one zero column, as many rows as the input
+        cols = [g.zero_column()]
+        coef = np.concatenate([coef[:1], np.zeros_like(coef[:1])])
+    design = g.op("Concat", cols, axis=1) if len(cols) > 1 else cols[0]
     weights = coef[1:].reshape(len(cols), -1)
     eta = g.op("Add", [g.op("MatMul", [design, g.const(weights)]), g.const(coef[0].reshape(1, -1))])
     outputs = []
