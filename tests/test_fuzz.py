@@ -35,7 +35,6 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
-import pytest
 from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
 
