@@ -171,6 +171,18 @@ def test_extreme_scores_give_probabilities_not_errors(tmp_path):
         np.testing.assert_allclose(res["probabilities"], want, atol=1e-12, err_msg=form)
 
 
+def _unguarded_log(eq, fills: dict):
+    """The equation with its (guarded) log term replaced by a plain log of the input, which has no
+    value for inputs <= 0: discovery's log terms never do that, a hand-made expression can, and
+    every form must then agree on a missing prediction."""
+    import dataclasses
+
+    from pocketforest.expr import Log, Num
+    eq.columns = [dataclasses.replace(c, node=Log(Num("pos", fills["pos"]))) if c.label.startswith("log") else c
+                  for c in eq.columns]
+    return eq
+
+
 def _missing_where_not_finite(values: np.ndarray) -> np.ndarray:
     """The documented outcome (README, "Equation values that are not finite"): missing (NaN)."""
     values = np.asarray(values, dtype=float)
@@ -179,10 +191,12 @@ def _missing_where_not_finite(values: np.ndarray) -> np.ndarray:
 
 def test_huge_inputs_and_logs_of_non_positive_values_agree_in_every_form(tmp_path):
     """An input of 1e30 in a squared term is the same finite number in every form (ONNX computes
-    and returns double precision, so nothing overflows float32), and the log of a value <= 0 is a
+    and returns double precision, so nothing overflows float32), and a log of a value <= 0 is a
     missing prediction everywhere: NaN from ONNX and numpy, None from Python, null from
     JavaScript, NULL from SQL."""
-    eq, table = _fit([Term("linear", ["x1"]), Term("quadratic", ["x1"], {"centre": 0.1}), Term("log", ["pos"])])
+    eq, table = _fit([Term("linear", ["x1"]), Term("quadratic", ["x1"], {"centre": 0.1}),
+                      Term("log", ["pos"], {"floor": 0.5})])
+    eq = _unguarded_log(eq, {"pos": float(np.nanmedian(table.data["pos"].astype(float)))})
     rows = _fresh_rows().head(8).copy()
     rows["x1"] = [1e30, -1e30, 3.4e38, 0.2, 0.3, 1e20, 0.1, 0.5]
     rows["pos"] = [1.0, 2.0, 1.0, 0.0, -2.0, 1.0, np.nan, 1.5]
@@ -243,10 +257,11 @@ def test_generated_graph_names_never_meet_an_input_name():
 
 @pytest.mark.parametrize("k", [2, 3])
 def test_classification_without_a_finite_score_is_missing_in_every_form(k, tmp_path):
-    """A log term of a value <= 0 leaves the class scores without a value: every form returns
+    """A log of a value <= 0 leaves the class scores without a value: every form returns
     no label ("" from ONNX, None/null/NULL from the code forms, read as "") and missing
     probabilities, instead of a label chosen from NaNs."""
-    eq, table = _fit([Term("linear", ["x1"]), Term("log", ["pos"])], task="classification", k=k)
+    eq, table = _fit([Term("linear", ["x1"]), Term("log", ["pos"], {"floor": 0.5})], task="classification", k=k)
+    eq = _unguarded_log(eq, {"pos": float(np.nanmedian(table.data["pos"].astype(float)))})
     rows = _fresh_rows().head(5).copy()
     rows["pos"] = [1.0, 0.0, -1.0, 2.0, np.nan]
     want = _missing_where_not_finite(eq.predict(rows))

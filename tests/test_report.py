@@ -211,36 +211,41 @@ def test_a_failing_section_is_reported_in_place(with_terms, capsys):
 
 @pytest.mark.parametrize("name", ["regression", "multiclass"])
 def test_interaction_table_puts_figures_in_columns(bundles, name):
-    """One row per measured pair with H², strength, null, threshold and kept in their own cells;
-    the threshold's rule is said once under the table, and nothing is escaped twice."""
+    """One row per measured pair with each figure the records carry (H², strength, ...) and kept
+    in cells of their own; nothing is escaped twice, and no long text repeats per row."""
     import json
+
+    from pocketforest.report.page import _PAIR_COLUMNS
     page = (bundles[name] / "report.html").read_text(encoding="utf-8")
     m = json.loads((bundles[name] / "manifest.json").read_text(encoding="utf-8"))
     sec = _sections(page)["interactions"]
     pairs = [i for i in m["interactions"] if len(i["variables"]) == 2]
     assert pairs, "the synthetic table has material pairs to measure"
     head = re.search(r"<thead>(.*?)</thead>", sec).group(1)
-    for label in ("H²", "strength", "null H²", "null strength", "threshold", "kept"):
-        assert f">{label}<" in head, label
+    for key, label in _PAIR_COLUMNS + [("kept", "kept")]:
+        assert (f">{label}<" in head) == any(key in i for i in pairs), label
+    assert ">H²<" in head and ">strength<" in head and ">kept<" in head
     assert sec.count("<tr>") == len(pairs) + 1
     assert "&amp;#" not in sec and "&amp;amp;" not in sec
-    rule = pairs[0]["threshold_rule"]
-    assert sec.count(rule.replace("'", "&#x27;")) == 1
+    for text in {i["threshold_rule"] for i in pairs if "threshold_rule" in i}:
+        assert sec.count(text.replace("'", "&#x27;")) == 1
     kept = sum(1 for i in pairs if i["kept"])
     assert len(re.findall(r"<td class=l>yes</td>", sec)) == kept
 
 
-def test_screening_table_and_correlated_groups_come_from_typed_records(with_terms):
-    """The shadow check per variable and the correlated groups are drawn from the manifest's
-    records (no note text is read): one row per variable, one per group."""
+def test_screening_table_and_correlated_clusters_come_from_typed_records(with_terms):
+    """The importance test per variable and the correlated clusters are drawn from the manifest's
+    records (no note text is read): one row per variable, one per cluster."""
     from pocketforest.report import render_report
     r, m = with_terms
     mat = m["discovery"]["materiality"]
-    groups = [{"variables": ["x1", "x2", "x3"], "min_abs_spearman": 0.91}, {"variables": ["a b", "c"], "min_abs_spearman": 0.95}]
-    m2 = {**m, "discovery": {**m["discovery"], "materiality": {**mat, "correlated_groups": groups}}}
+    clusters = [{"variables": ["x1", "x2", "x3"], "max_abs_spearman": 0.91},
+                {"variables": ["a b", "c"], "max_abs_spearman": 0.95}]
+    m2 = {**m, "discovery": {**m["discovery"], "materiality": {**mat, "correlated_clusters": clusters}}}
     sec = _sections(render_report(r, m2))["importance"]
-    table = sec[sec.index("Does each variable beat its shadow?"):]
+    table = sec[sec.index("Is each variable's importance more than noise?"):]
     first = table[:table.index("</table>")]
     assert first.count("<tr>") == len(mat["variables"]) + 1
     assert "Strongly correlated columns" in sec and "<td class=l>a b, c</td>" in sec and ">0.95<" in sec
-    assert "Strongly correlated columns" not in _sections(render_report(r, m))["importance"]
+    plain = {**m, "discovery": {**m["discovery"], "materiality": {**mat, "correlated_clusters": []}}}
+    assert "Strongly correlated columns" not in _sections(render_report(r, plain))["importance"]

@@ -78,7 +78,7 @@ def test_classification_columns_never_run_together():
 
 def _summary_dict(task: str, metrics: dict, fidelity: dict, loss_metric: str, n: int = 5) -> dict:
     return {"target": "t", "task": task, "splits": {"discovery": 10, "confirmation": 5, "test": n},
-            "evaluation": {"n": n, "forest": metrics, "tree": metrics, "equation": metrics},
+            "evaluation": {"on": "test", "n": n, "forest": metrics, "tree": metrics, "equation": metrics},
             "fidelity": {m: fidelity for m in ("tree", "equation")},
             "loss": {m: {"metric": loss_metric, "value": -1234.5, "ci_low": -99999.25, "ci_high": 0.0627}
                      for m in ("tree", "equation")},
@@ -134,7 +134,7 @@ def test_result_summary_holds_scoreboard_formula_and_coefficients(fitted, task):
     assert text.startswith(format_summary(result_dict(r)))       # the scoreboard the command line prints
     assert f"equation: {r.equation.formula}" in text and "bundle:" not in text
     coefficients = text.split("\ncoefficients: ", 1)[1].splitlines()
-    for row in r.equation.table:
+    for row in (r.equation.inference or r.equation).table:
         line = next(line for line in coefficients if f" {row['term']} " in f" {line} "
                     and (row.get("class") is None or line.startswith(row["class"] + " ")))
         assert f"{row['estimate']:.4g}" in line and f"{row['p_value']:.3g}" in line

@@ -106,8 +106,8 @@ def _coefficients(eq) -> list[str]:
     has_class = bool(eq.table) and "class" in eq.table[0]
     head = (["class"] if has_class else []) + ["term", "estimate", "std error", "95% low", "95% high", "p"]
     rows = [head] + [([c["class"]] if has_class else [])
-                     + [c["term"]] + [_f(c[k], ".4g") for k in ("estimate", "std_error", "ci_low", "ci_high")]
-                     + [_f(c["p_value"], ".3g")] for c in eq.table]
+                     + [c["term"]] + [_f(c.get(k), ".4g") for k in ("estimate", "std_error", "ci_low", "ci_high")]
+                     + [_f(c.get("p_value"), ".3g")] for c in eq.table]
     right = ([False] if has_class else []) + [False] + [True] * 5
     table = aligned_columns(rows, right)
     return [table[0], "-" * max(len(line) for line in table)] + table[1:]
@@ -117,13 +117,16 @@ def result_text(r) -> str:
     """What ``Distillation.summary()`` returns: the scoreboard, fidelity and loss, the formula, the
     tree's size and the equation's coefficients, as text (numbers as in the ``--json`` output)."""
     eq = r.equation
+    paper = eq.inference or eq        # the fit whose standard errors and p-values are for reading
     lines = [format_summary(result_dict(r)), "",
-             f"coefficients: {eq.family} GLM, {eq.link} link, on the {eq.fit_on} rows (n = {eq.n})"]
-    lines += _coefficients(eq)
-    bt = eq.block_test
+             f"coefficients: {eq.family} GLM, {eq.link} link, on the {paper.fit_on} rows (n = {paper.n})"]
+    lines += _coefficients(paper)
+    bt = paper.block_test
     if bt:
         lines.append(f"block test of the suggested terms: statistic {_f(bt.get('statistic'), '.4g')}, "
                      f"df {bt.get('df')}, p = {_f(bt.get('p_value'), '.3g')}")
+    if eq.inference is not None:
+        lines.append(f"the exports carry these terms re-estimated on the {eq.fit_on} rows (n = {eq.n}, {eq.method})")
     return "\n".join(lines)
 
 

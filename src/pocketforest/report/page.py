@@ -225,35 +225,26 @@ def _importance(m: dict) -> str:
 
 
 def _screening(mat: dict) -> str:
-    """The shadow-column check per variable, and groups of strongly correlated columns, from the
-    typed records discovery keeps in the manifest: the detail behind the notes, in columns."""
+    """The importance test per variable and the clusters of strongly correlated columns, from the
+    typed records discovery keeps in the manifest (``discovery.materiality``): the detail behind
+    the notes, in columns, never read from a note's wording."""
     variables = mat.get("variables") or {}
     if not variables:
         return ""
-    rows = []
-    for name, ev in variables.items():
-        held = ev.get("held_out") or {}
-        rows.append([name, ev.get("shadow_forest_importance"), ev.get("null_threshold"), ev.get("z"),
-                     held.get("importance"), held.get("largest_shadow"),
-                     _yes_no(held.get("above_shadows")) if held else "–", ev.get("decision", "–")])
-    rule = (mat.get("rule") or {}).get("rule")
-    parts = ["<h3>Does each variable beat its shadow?</h3>",
-             "<p>A second forest grows on part of the discovery rows beside a shuffled copy (shadow) of "
-             "every column; a column matters when its out-of-bag importance there clears the shadows. "
-             "The remaining discovery rows repeat the check with held-out permutation importance."
-             + (f" Rule: {_e(rule)}." if rule else "") + "</p>",
-             _table(["variable", "out-of-bag", "null threshold", "mean / se", "held-out", "largest shadow",
-                     "held-out beats shadows", "decision"], rows)]
-    groups = mat.get("correlated_groups") or []
-    if groups:
-        keys = list(dict.fromkeys(k for g in groups for k, v in g.items()
-                                  if k != "variables" and isinstance(v, (int, float)) and not isinstance(v, bool)))
+    rows = [[name, ev.get("oob_importance"), ev.get("oob_se"), ev.get("z"), _yes_no(ev.get("passed")),
+             _yes_no(ev.get("requested")), ev.get("decision", "–")] for name, ev in variables.items()]
+    rule = mat.get("rule")
+    parts = ["<h3>Is each variable's importance more than noise?</h3>",
+             (f"<p>Rule: {_e(rule)}.</p>" if isinstance(rule, str) and rule else ""),
+             _table(["variable", "importance", "standard error", "z", "passed", "asked for", "decision"], rows)]
+    clusters = mat.get("correlated_clusters") or []
+    if clusters:
         parts += ["<h3>Strongly correlated columns</h3>",
-                  "<p>Importance is shared out within each group, and partial dependence extrapolates for "
+                  "<p>Importance is shared out within each cluster, and partial dependence extrapolates for "
                   "its members, so their shapes come from accumulated local effects.</p>",
-                  _table(["group", "columns"] + [k.replace("_", " ") for k in keys],
-                         [[str(i + 1), ", ".join(g.get("variables") or [])] + [g.get(k) for k in keys]
-                          for i, g in enumerate(groups)])]
+                  _table(["cluster", "columns", "largest |Spearman|"],
+                         [[str(i + 1), ", ".join(c.get("variables") or []), c.get("max_abs_spearman")]
+                          for i, c in enumerate(clusters)])]
     return "".join(parts)
 
 
@@ -294,6 +285,8 @@ def _shapes(r, m: dict) -> str:
             + "<div class='grid'>" + "".join(panels) + "</div>")
 
 
+#: The figures a pair record may carry, in the order the table shows them; a column appears when
+#: any record has it.
 _PAIR_COLUMNS = [("h2", "H²"), ("strength", "strength"), ("null_h2", "null H²"),
                  ("null_strength", "null strength"), ("strength_threshold", "threshold")]
 
@@ -309,10 +302,11 @@ def _interactions(m: dict) -> str:
                        "no interaction matrix; the equation holds main effects only.")
     fig = plots.interaction_plot(inter)
     products = any("product" in it for it in inter)
-    head = ["pair", "kind"] + [label for _, label in _PAIR_COLUMNS] + ["kept"] + (["product R²"] if products else [])
+    figures = [(k, label) for k, label in _PAIR_COLUMNS if any(k in it for it in inter)]
+    head = ["pair", "kind"] + [label for _, label in figures] + ["kept"] + (["product R²"] if products else [])
     rows = []
     for it in sorted(inter, key=lambda i: -(i.get("h2") or 0)):
-        row = [" × ".join(it["variables"]), it.get("kind", "–")] + [it.get(k) for k, _ in _PAIR_COLUMNS]
+        row = [" × ".join(it["variables"]), it.get("kind", "–")] + [it.get(k) for k, _ in figures]
         row.append(_yes_no(it.get("kept")))
         if products:
             row.append((it.get("product") or {}).get("r2_product"))
@@ -327,10 +321,11 @@ def _interactions(m: dict) -> str:
     if products:
         about.append("Product R²: the share of a kept numeric pair's interaction surface that a centred "
                      "product of the two columns recovers.")
+    nulls = ("The null columns are the same figures in a forest grown on an additive version of the data, "
+             "where any interaction is noise. " if any(k.startswith("null_") for k, _ in figures) else "")
     legend = ("<p class='note'>Strength: the root mean square of the pair's joint effect beyond the two "
-              "separate effects, relative to the spread of the forest's predictions. The null columns are the same figures in a forest grown on an additive version "
-              "of the data, where any interaction is noise. Kept: the pair was put forward as a term for "
-              "the equation. " + " ".join(about) + "</p>")
+              "separate effects, relative to the spread of the forest's predictions. " + nulls
+              + "Kept: the pair was put forward as a term for the equation. " + " ".join(about) + "</p>")
     return (_figure(fig, "Friedman &amp; Popescu's H² for each measured pair (2008, eq. 44): the share of the "
                     "pair's joint partial dependence not explained by the two variables separately. H² is "
                     "large for pairs whose joint effect is tiny, so read it beside the pair's strength.")
