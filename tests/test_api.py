@@ -29,3 +29,15 @@ def test_classification_probabilities(tmp_path):
     # a double softmax rounded to float32 per class: the sum is off by <= k * 2^-24 * p ~ 6e-8
     np.testing.assert_allclose(proba.sum(axis=1), 1.0, atol=1e-6)
     assert set(bundle.predict(df.head(10), "tree")) <= set(bundle.classes)
+
+
+def test_fit_and_the_command_line_grow_the_same_forest_by_default():
+    """One default tree count (defaults.TREES) for pocketforest.fit, Settings and `distill`."""
+    import inspect
+
+    from pocketforest.cli import build_parser
+    from pocketforest.defaults import TREES
+    from pocketforest.pipeline import Settings
+    cli = build_parser().parse_args(["distill", "data.csv", "--target", "y"])
+    assert inspect.signature(pf.fit).parameters["n_trees"].default == TREES
+    assert Settings().trees == TREES and cli.trees == TREES

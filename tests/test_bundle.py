@@ -143,3 +143,95 @@ def test_existing_bundle_is_not_overwritten_without_force(tmp_path):
     assert r.returncode == 0, r.stderr
     assert (out / "manifest.json").is_file() and not (out / "keep.txt").exists()
     assert not [p for p in tmp_path.iterdir() if p.name.startswith(".")], "temporary folders left behind"
+
+
+def _race(args):
+    """One racer: wait for the other, then move a finished folder into place."""
+    tmp, out, who, barrier = args
+    from pocketforest.bundle import move_into_place
+    from pocketforest.errors import InputError
+    barrier.wait()
+    try:
+        move_into_place(Path(tmp), Path(out))
+        return who, "ok"
+    except InputError as exc:
+        return who, f"error: {exc}"
+
+
+def test_racing_writers_never_replace_each_other(tmp_path):
+    """Two processes finish a bundle at the same instant for the same --out: one folder lands,
+    the other run is refused, every time (the check is made at the rename itself)."""
+    import multiprocessing as mp
+
+    import pocketforest.bundle  # noqa: F401  (imported once here, before the workers fork)
+    ctx = mp.get_context("fork")
+    with ctx.Manager() as manager, ctx.Pool(2) as pool:
+        for round_ in range(8):
+            out = tmp_path / f"bundle{round_}"
+            barrier = manager.Barrier(2)
+            jobs = []
+            for who in ("a", "b"):
+                tmp = tmp_path / f".bundle{round_}.{who}"
+                tmp.mkdir()
+                (tmp / "who.txt").write_text(who)
+                jobs.append((str(tmp), str(out), who, barrier))
+            results = dict(pool.map(_race, jobs))
+            winners = [w for w, res in results.items() if res == "ok"]
+            assert len(winners) == 1, results
+            loser = ({"a", "b"} - set(winners)).pop()
+            assert "already exists" in results[loser]
+            assert (out / "who.txt").read_text() == winners[0]
+            assert (tmp_path / f".bundle{round_}.{loser}" / "who.txt").read_text() == loser  # nothing lost
+
+
+def test_forced_move_puts_the_old_bundle_back_when_the_rename_fails(tmp_path, monkeypatch):
+    from pocketforest import bundle
+    out = tmp_path / "b"
+    out.mkdir()
+    (out / "old.txt").write_text("old")
+    tmp = tmp_path / ".b.new"
+    tmp.mkdir()
+    real = bundle.os.rename
+
+    def failing(src, dst):
+        if Path(src) == tmp:
+            raise OSError("disk gone")
+        return real(src, dst)
+
+    monkeypatch.setattr(bundle.os, "rename", failing)
+    with pytest.raises(OSError):
+        bundle.move_into_place(tmp, out, force=True)
+    assert (out / "old.txt").read_text() == "old"
+    assert sorted(p.name for p in tmp_path.iterdir()) == [".b.new", "b"]
+
+
+def test_two_distill_runs_on_one_out_folder(tmp_path):
+    """Started together with the same --out: exactly one succeeds, the other gives one `error:`
+    line and exit 2, and the bundle that stands is the winner's, whole."""
+    import os
+    import subprocess
+    import sys
+
+    from conftest import SRC
+    from pocketforest.scoring.bundle_io import read_manifest, sha256
+    src = tmp_path / "d.csv"
+    synthetic_table(n=300, seed=2).to_csv(src, index=False)
+    out = tmp_path / "bundle"
+    env = dict(os.environ, PYTHONPATH=str(SRC))
+    procs = [subprocess.Popen([sys.executable, "-m", "pocketforest", "distill", str(src), "--target", "y",
+                               "--out", str(out), "--trees", "20", "--seed", str(seed), "-q", "--json"],
+                              stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=env)
+             for seed in (1, 2)]
+    results = [(p.wait(timeout=600), p.stdout.read(), p.stderr.read()) for p in procs]
+    for p in procs:
+        p.stdout.close()
+        p.stderr.close()
+    codes = sorted(rc for rc, _, _ in results)
+    assert codes == [0, 2], results
+    winner = next(r for r in results if r[0] == 0)
+    loser = next(r for r in results if r[0] == 2)
+    assert loser[2].strip().count("\n") == 0 and loser[2].startswith("error: ") and "already exists" in loser[2]
+    manifest = read_manifest(out)
+    assert json.loads(winner[1])["evaluation"] == manifest["evaluation"]
+    assert all(sha256(out / name) == digest for name, digest in manifest["artifacts"].items())
+    assert not [p for p in tmp_path.iterdir() if p.name.startswith(".")], "temporary folders left behind"

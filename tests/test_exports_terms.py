@@ -5,9 +5,9 @@ graph (onnxruntime), the SQL (SQLite and DuckDB), the Python export (separate is
 interpreter), the JavaScript export (Node.js), the R export (Rscript) and the SPSS syntax (GNU
 PSPP) are run on fresh rows that include missing values, an unseen category and values outside
 the training range. The reference is ``EquationFit.predict`` (numpy, double precision); ONNX
-computes in double inside and returns float32, the code forms compute in double. The graph's
-``contributions`` output is checked against the design matrix times the coefficients, summed by
-term (numpy).
+computes in double from float32 inputs and returns double (probabilities as float32), the code
+forms compute in double. The graph's ``contributions`` output is checked against the design matrix
+times the coefficients, summed by term (numpy).
 """
 from __future__ import annotations
 
@@ -163,9 +163,10 @@ def test_each_term_kind_in_every_equation_form(kind, tmp_path):
     outputs = _onnx_outputs(eq, table, rows)
     _check_contributions(eq, rows, outputs)
     got = outputs["prediction"].reshape(-1)
-    # The graph computes in double from float32 inputs and rounds the result to float32 once: from
-    # the same float32 inputs the only gap is that rounding, at most half a float32 ulp (2^-24
-    # relative); rtol one ulp (2^-23), atol for double summation order near zero (~k * eps).
+    # The graph computes and returns double from float32 inputs: from the same float32 inputs only
+    # the summation order differs (~k * eps). rtol one float32 ulp (2^-23) bounds it with room (it
+    # also bounded the float32 rounding of the output, before the output became double); atol for
+    # double summation order near zero.
     want32 = eq.predict(_as_float32_inputs(rows))
     np.testing.assert_allclose(got, want32, rtol=2.0 ** -23, atol=1e-12 * max(1.0, np.abs(want32).max()))
     # The code forms compute in double from the double inputs: only summation order and libm's last
@@ -219,3 +220,127 @@ def test_extreme_scores_give_probabilities_not_errors(tmp_path):
     # saturated scores give exactly 0 or 1 in double; the others differ by rounding only (~1e-15)
     for form, res in _code_outputs(eq, table, rows, tmp_path).items():
         np.testing.assert_allclose(res["probabilities"], want, atol=1e-12, err_msg=form)
+
+
+def _unguarded_log(eq, fills: dict):
+    """The equation with its (guarded) log term replaced by a plain log of the input, which has no
+    value for inputs <= 0: discovery's log terms never do that, a hand-made expression can, and
+    every form must then agree on a missing prediction."""
+    import dataclasses
+
+    from pocketforest.expr import Log, Num
+    eq.columns = [dataclasses.replace(c, node=Log(Num("pos", fills["pos"]))) if c.label.startswith("log") else c
+                  for c in eq.columns]
+    return eq
+
+
+def _missing_where_not_finite(values: np.ndarray) -> np.ndarray:
+    """The documented outcome (README, "Equation values that are not finite"): missing (NaN)."""
+    values = np.asarray(values, dtype=float)
+    return np.where(np.isfinite(values), values, np.nan)
+
+
+def test_huge_inputs_and_logs_of_non_positive_values_agree_in_every_form(tmp_path):
+    """An input of 1e30 in a squared term is the same finite number in every form (ONNX computes
+    and returns double precision, so nothing overflows float32), and a log of a value <= 0 is a
+    missing prediction everywhere: NaN from ONNX and numpy, None from Python, null from
+    JavaScript, NULL from SQL."""
+    eq, table = _fit([Term("linear", ["x1"]), Term("quadratic", ["x1"], {"centre": 0.1}),
+                      Term("log", ["pos"], {"floor": 0.5})])
+    eq = _unguarded_log(eq, {"pos": float(np.nanmedian(table.data["pos"].astype(float)))})
+    rows = _fresh_rows().head(8).copy()
+    rows["x1"] = [1e30, -1e30, 3.4e38, 0.2, 0.3, 1e20, 0.1, 0.5]
+    rows["pos"] = [1.0, 2.0, 1.0, 0.0, -2.0, 1.0, np.nan, 1.5]
+    want = eq.predict(rows)
+    assert np.isfinite(want[[0, 1, 2, 5, 6, 7]]).all() and np.isnan(want[[3, 4]]).all()
+    assert abs(want[0]) > 1e59   # beyond float32's largest value, 3.4e38
+    got = _onnx_outputs(eq, table, rows)["prediction"].reshape(-1)
+    assert got.dtype == np.float64
+    # the inputs enter ONNX as float32 (relative rounding <= 2**-24 each, doubled by the square):
+    # 1e-6 relative, and 1e-6 absolute for the predictions of order one
+    np.testing.assert_allclose(got, want, rtol=1e-6, atol=1e-6)
+    for form, res in _code_outputs(eq, table, rows, tmp_path).items():
+        # double precision throughout; summation order and libm differ at most in the last bits
+        np.testing.assert_allclose(res["prediction"], want, rtol=1e-12, atol=1e-12, err_msg=form)
+
+
+def test_log_link_overflow_is_missing_in_every_form(tmp_path):
+    """A Poisson equation's mean exp(eta) overflows a double for eta above about 709.78: the
+    prediction is missing in every form, as is any other value that is not finite."""
+    df = _data("regression")
+    rng = np.random.default_rng(5)
+    df["y"] = rng.poisson(np.exp(0.5 * df["x1"])).astype(float)
+    table = prepare(df, "y", source="counts.csv")
+    kinds = {f.name: f.kind for f in table.features}
+    fills = {f.name: (float(np.nanmedian(table.data[f.name].astype(float))) if f.kind == "numeric" else "")
+             for f in table.features}
+    eq = fit_equation([Term("linear", ["x1"])], table.data, table.data["y"].to_numpy(dtype=float),
+                      task="regression", target="y", fills=fills, kinds=kinds, classes=None, family="poisson",
+                      fit_on="all")
+    rows = _fresh_rows().head(4).copy()
+    rows["x1"] = [0.5, 1e6, -1e6, 3e38]
+    want = _missing_where_not_finite(eq.predict(rows))
+    assert np.isnan(want[[1, 3]]).all() and np.isfinite(want[[0, 2]]).all()
+    got = _onnx_outputs(eq, table, rows)["prediction"].reshape(-1)
+    np.testing.assert_allclose(got, want, rtol=1e-6, atol=1e-6)   # float32 inputs, as above
+    for form, res in _code_outputs(eq, table, rows, tmp_path).items():
+        np.testing.assert_allclose(res["prediction"], want, rtol=1e-12, atol=1e-12, err_msg=form)
+
+
+def test_generated_graph_names_never_meet_an_input_name():
+    """Columns named 1, 2, ... reach ONNX as inputs c_1, c_2, ...; the graph's own constants are
+    also numbered names, and once took an input's name (found by tests/test_fuzz.py)."""
+    rng = np.random.default_rng(3)
+    df = pd.DataFrame({str(k): rng.normal(size=200) for k in range(1, 13)})
+    df["y"] = df["1"] - 2 * df["9"] + rng.normal(0, 0.1, 200)
+    table = prepare(df, "y", source="numbered.csv")
+    assert {f.onnx_input for f in table.features} >= {"c_1", "c_9", "c_12"}
+    kinds = {f.name: f.kind for f in table.features}
+    fills = {f.name: 0.0 for f in table.features}
+    terms = [Term("linear", [str(k)]) for k in range(1, 13)]
+    eq = fit_equation(terms, table.data, table.data["y"].to_numpy(dtype=float), task="regression", target="y",
+                      fills=fills, kinds=kinds, classes=None, fit_on="all")
+    rows = df.drop(columns="y").head(20)
+    got = _onnx_outputs(eq, table, rows)["prediction"].reshape(-1)
+    # float32 inputs of order one: 1e-6 (as in test_each_term_kind_in_every_equation_form)
+    np.testing.assert_allclose(got, eq.predict(rows), rtol=1e-6, atol=1e-6)
+
+
+@pytest.mark.parametrize("k", [2, 3])
+def test_classification_without_a_finite_score_is_missing_in_every_form(k, tmp_path):
+    """A log of a value <= 0 leaves the class scores without a value: every form returns
+    no label ("" from ONNX, None/null/NULL from the code forms, read as "") and missing
+    probabilities, instead of a label chosen from NaNs."""
+    eq, table = _fit([Term("linear", ["x1"]), Term("log", ["pos"], {"floor": 0.5})], task="classification", k=k)
+    eq = _unguarded_log(eq, {"pos": float(np.nanmedian(table.data["pos"].astype(float)))})
+    rows = _fresh_rows().head(5).copy()
+    rows["pos"] = [1.0, 0.0, -1.0, 2.0, np.nan]
+    want = _missing_where_not_finite(eq.predict(rows))
+    gone = np.isnan(want).any(axis=1)
+    assert list(gone) == [False, True, True, False, False]
+    labels = np.where(gone, "", np.asarray(eq.classes)[np.nan_to_num(want).argmax(1)])
+    got = _onnx_outputs(eq, table, rows)
+    np.testing.assert_allclose(got["probabilities"], want, atol=1e-6)   # float32 probabilities
+    np.testing.assert_array_equal(got["label"], labels)
+    for form, res in _code_outputs(eq, table, rows, tmp_path).items():
+        np.testing.assert_allclose(res["probabilities"], want, atol=1e-12, err_msg=form)
+        np.testing.assert_array_equal(res["label"], labels, err_msg=form)
+
+
+@pytest.mark.parametrize("task, k", [("regression", 2), ("classification", 2), ("classification", 3)])
+def test_intercept_only_equation_in_every_form(task, k, tmp_path):
+    """No variable earned a term: the equation is its intercept, and every form still gives one
+    value per row (equation.onnx once failed to build; found by tests/test_fuzz.py)."""
+    eq, table = _fit([], task=task, k=k)
+    assert not eq.columns
+    rows = _fresh_rows().head(7)
+    want = eq.predict(rows)
+    got = _onnx_outputs(eq, table, rows)
+    if task == "regression":
+        # one double intercept plus zeros: exact
+        np.testing.assert_allclose(got["prediction"].reshape(-1), want, rtol=1e-12)
+    else:
+        np.testing.assert_allclose(got["probabilities"], want, atol=1e-6)   # float32 probabilities
+    for form, res in _code_outputs(eq, table, rows, tmp_path).items():
+        key = "prediction" if task == "regression" else "probabilities"
+        np.testing.assert_allclose(res[key], want, rtol=1e-12, atol=1e-12, err_msg=form)

@@ -87,6 +87,15 @@ def test_report_with_suggested_terms(with_terms):
     assert "interaction with colour" in s["shapes"]
 
 
+def test_equation_section_shows_the_manifest_note(with_terms):
+    """The page reads ``equation.note``, the key the bundle writes, and escapes it once."""
+    from pocketforest.report import render_report
+    r, m = with_terms
+    m2 = {**m, "equation": {**m["equation"], "note": "Estimated on rows <b>& kept</b> apart."}}
+    eq = _sections(render_report(r, m2))["equation"]
+    assert "Estimated on rows &lt;b&gt;&amp; kept&lt;/b&gt; apart." in eq
+
+
 def test_equation_curve_is_its_own_partial_dependence(with_terms):
     """Constructed truth: with x2 entering as b·x2 + c·max(0, x2 − 0.2) + d·x2·x3, the equation's
     partial dependence on x2 has slope b + d·mean(x3) below the knot and b + c + d·mean(x3) above."""
@@ -123,18 +132,33 @@ def test_forest_curve_for_a_category_finds_the_planted_effect(with_terms):
 
 
 def test_stored_discovery_curve_is_used(with_terms):
+    """The panel reads the fields discovery writes (kind, grid, pd, scale), nothing else."""
     from pocketforest.report.shapes import shape_curves
     r, m = with_terms
     grid = [-0.5, 0.0, 0.5]
-    r.discovery.shapes = {"x1": {"grid": grid, "values": [1.0, 2.0, 3.0]}}
+    r.discovery.shapes = {"x1": {"kind": "numeric", "grid": grid, "pd": [1.0, 2.0, 3.0], "scale": "value"}}
     try:
         (c,) = shape_curves(r, m, ["x1"])
     finally:
         r.discovery.shapes = {}
-    # both lines centred, so the stored curve's own convention does not matter
+    # both lines centred, so the stored curve's own level does not matter
     assert c["source"] == "discovery step" and c["forest"] == [[-1.0, 0.0, 1.0]] and c["grid"] == grid
     # centred: three values summing to zero within ~3 * eps * |value|
     assert len(c["equation"][0]) == 3 and abs(sum(c["equation"][0])) < 1e-9 and "centred" in c["scale"]
+
+
+def test_stored_curve_on_another_scale_is_not_drawn_as_a_probability(with_terms):
+    """A classification curve is stored as log-odds while the panel compares probabilities, so the
+    report computes its own curve rather than draw log-odds beside a probability."""
+    from pocketforest.report.shapes import shape_curves
+    r, m = with_terms
+    r.discovery.shapes = {"x1": {"kind": "numeric", "grid": [-0.5, 0.0, 0.5], "pd": [1.0, 2.0, 3.0],
+                                 "scale": "log-odds"}}
+    try:
+        (c,) = shape_curves(r, m, ["x1"])
+    finally:
+        r.discovery.shapes = {}
+    assert c["source"] == "computed for this report" and len(c["grid"]) > 3
 
 
 @pytest.mark.skipif(chromium() is None, reason="no Chromium on PATH (CI installs the Debian package "
@@ -187,3 +211,45 @@ def test_a_failing_section_is_reported_in_place(with_terms, capsys):
     assert "could not be drawn" in s["interactions"] and "manifest.json" in s["interactions"]
     assert "<svg" in s["importance"] and "<svg" in s["tree"]
     assert "report section 'interactions' could not be drawn" in capsys.readouterr().err
+
+
+@pytest.mark.parametrize("name", ["regression", "multiclass"])
+def test_interaction_table_puts_figures_in_columns(bundles, name):
+    """One row per measured pair with each figure the records carry (H², strength, ...) and kept
+    in cells of their own; nothing is escaped twice, and no long text repeats per row."""
+    import json
+
+    from pocketforest.report.page import _PAIR_COLUMNS
+    page = (bundles[name] / "report.html").read_text(encoding="utf-8")
+    m = json.loads((bundles[name] / "manifest.json").read_text(encoding="utf-8"))
+    sec = _sections(page)["interactions"]
+    pairs = [i for i in m["interactions"] if len(i["variables"]) == 2]
+    assert pairs, "the synthetic table has material pairs to measure"
+    head = re.search(r"<thead>(.*?)</thead>", sec).group(1)
+    for key, label in _PAIR_COLUMNS + [("kept", "kept")]:
+        assert (f">{label}<" in head) == any(key in i for i in pairs), label
+    assert ">H²<" in head and ">strength<" in head and ">kept<" in head
+    assert sec.count("<tr>") == len(pairs) + 1
+    assert "&amp;#" not in sec and "&amp;amp;" not in sec
+    for text in {i["threshold_rule"] for i in pairs if "threshold_rule" in i}:
+        assert sec.count(text.replace("'", "&#x27;")) == 1
+    kept = sum(1 for i in pairs if i["kept"])
+    assert len(re.findall(r"<td class=l>yes</td>", sec)) == kept
+
+
+def test_screening_table_and_correlated_clusters_come_from_typed_records(with_terms):
+    """The importance test per variable and the correlated clusters are drawn from the manifest's
+    records (no note text is read): one row per variable, one per cluster."""
+    from pocketforest.report import render_report
+    r, m = with_terms
+    mat = m["discovery"]["materiality"]
+    clusters = [{"variables": ["x1", "x2", "x3"], "max_abs_spearman": 0.91},
+                {"variables": ["a b", "c"], "max_abs_spearman": 0.95}]
+    m2 = {**m, "discovery": {**m["discovery"], "materiality": {**mat, "correlated_clusters": clusters}}}
+    sec = _sections(render_report(r, m2))["importance"]
+    table = sec[sec.index("Is each variable's importance more than noise?"):]
+    first = table[:table.index("</table>")]
+    assert first.count("<tr>") == len(mat["variables"]) + 1
+    assert "Strongly correlated columns" in sec and "<td class=l>a b, c</td>" in sec and ">0.95<" in sec
+    plain = {**m, "discovery": {**m["discovery"], "materiality": {**mat, "correlated_clusters": []}}}
+    assert "Strongly correlated columns" not in _sections(render_report(r, plain))["importance"]

@@ -12,12 +12,17 @@ from typing import Sequence
 import numpy as np
 import pandas as pd
 
+from .defaults import TREES
+
 
 def fit(data: pd.DataFrame | str | os.PathLike, target: str, *, task: str = "auto",
         categorical: Sequence[str] = (), ignore: Sequence[str] = (), random_state: int = 0,
-        n_trees: int = 500, tree_depth: int | None = None, tree_leaves: int | None = None,
+        n_trees: int = TREES, tree_depth: int | None = None, tree_leaves: int | None = None,
         split: tuple[float, float, float] | None = None, quiet: bool = True):
-    """Run the whole job on a DataFrame (or a data file) and return the :class:`Distillation`."""
+    """Run the whole job on a DataFrame (or a data file) and return the :class:`Distillation`.
+
+    ``n_trees`` defaults to :data:`pocketforest.defaults.TREES`, the same forest as the command line's.
+    """
     from .intake import load, prepare
     from .pipeline import Settings, distill
     if isinstance(data, pd.DataFrame):

@@ -23,7 +23,7 @@ from .export.breakdown import labels as contribution_labels
 from .export.spss import spss_names
 from .export.tree_spec import tree_nodes
 from .export.tree_svg import fidelity_note, tree_svg
-from .reference import pick_rows, with_predictions
+from .reference import pick_rows, reference_csv, with_predictions
 
 
 
@@ -64,9 +64,9 @@ def build_files(r, created: str) -> tuple[dict[str, bytes], dict]:
                                  note=fidelity_note(r.fidelity["tree"], r.evaluation.get("on"))).encode()
     for name, text in _code_exports(r, nodes).items():
         files[name] = text.encode()
-    rows = pick_rows(r.table.data, features, r.splits.test, r.settings.seed)
+    rows, spellings = pick_rows(r.table.data, features, r.splits.test, r.settings.seed)
     ref = with_predictions(rows, r.predict, task, classes)
-    files["reference.csv"] = ref.to_csv(index=False, float_format=None, lineterminator="\n").encode()
+    files["reference.csv"] = reference_csv(ref, features, spellings)
     manifest = _manifest(r, created, nodes)
     files.update(_collaborator_exports(r, nodes, manifest, rows, created))
     return files, manifest
@@ -198,17 +198,47 @@ def write_bundle(r, out: str | os.PathLike, *, force: bool = False) -> str:
         manifest["artifacts"] = {name: sha256(tmp / name) for name in sorted(os.listdir(tmp))}
         manifest["artifact_sizes"] = {name: (tmp / name).stat().st_size for name in sorted(os.listdir(tmp))}
         (tmp / "manifest.json").write_text(json.dumps(manifest, indent=2, ensure_ascii=False) + "\n", encoding="utf-8")
-        if out.exists():
-            old = Path(tempfile.mkdtemp(prefix=f".{out.name}.old.", dir=out.parent))
-            os.rename(out, old / "bundle")
-            os.rename(tmp, out)
-            shutil.rmtree(old, ignore_errors=True)
-        else:
-            os.rename(tmp, out)
+        move_into_place(tmp, out, force=force)
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         raise
     return str(out)
+
+
+def move_into_place(tmp: Path, out: Path, *, force: bool = False) -> None:
+    """Rename the finished folder ``tmp`` to ``out``; without ``force`` never replace anything.
+
+    The check at the start of :func:`write_bundle` can be minutes old by now: another run may
+    have written ``out`` meanwhile. So the name is claimed here with ``os.mkdir(out)``, which
+    creates the folder or fails if anything already has that name, atomically (POSIX mkdir(2)):
+    of two racing runs exactly one gets it, the other stops with an error. ``rename(2)`` then
+    swaps the folder we just made, still empty, for the bundle in one step, since a directory may
+    replace an *empty* directory and nothing else. (Linux's renameat2 with RENAME_NOREPLACE would
+    do it in one call, but Python does not expose it and not every file system supports it.)
+    With ``force`` an existing bundle is first moved aside, and put back if the rename fails.
+    """
+    old = None
+    if force and (out.exists() or out.is_symlink()):
+        old = Path(tempfile.mkdtemp(prefix=f".{out.name}.old.", dir=out.parent))
+        os.rename(out, old / "bundle")
+    try:
+        try:
+            os.mkdir(out)
+        except FileExistsError:
+            raise InputError(f"{out} already exists (another run wrote it while this one worked): "
+                             "choose another --out or pass --force to replace it") from None
+        try:
+            os.rename(tmp, out)
+        except BaseException:
+            os.rmdir(out)
+            raise
+    except BaseException:
+        if old is not None and not out.exists():
+            os.rename(old / "bundle", out)
+        raise
+    finally:
+        if old is not None:
+            shutil.rmtree(old, ignore_errors=True)
 
 
 def _report(r, manifest: dict, names: set[str] | None = None) -> str | None:

@@ -153,6 +153,10 @@ def _run_distill(data: str, target: str, args: argparse.Namespace) -> int:
         raise InputError(f"{out} already exists: choose another --out or pass --force to replace it")
     table = load(data, target, task=args.task, categorical=args.categorical, ignore=args.ignore)
     from .discovery import check_requests
+    from .intake.screening import column_named
+    names = [f.name for f in table.features]
+    args.keep_var = [column_named(v, names) for v in args.keep_var]
+    args.drop_var = [column_named(v, names) for v in args.drop_var]
     check_requests({f.name: f.kind for f in table.features}, args.keep_var, args.drop_var, args.max_terms)
     from .pipeline import Settings, distill
     from .summary import summary_dict, summary_text

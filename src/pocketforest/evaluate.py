@@ -153,8 +153,11 @@ def loss_with_interval(y: np.ndarray, forest_pred: np.ndarray, other_pred: np.nd
         if groups is not None:
             W = W[:, groups]
         fs, os_ = metrics_of(W)
-        for m in f0:
-            diffs[m].append(_signed(m, fs[m], os_[m]))
+        # a resample whose outcomes are all equal has no r2 (inf - inf): NaN, which the
+        # percentiles below skip, without a RuntimeWarning on the user's terminal
+        with np.errstate(invalid="ignore"):
+            for m in f0:
+                diffs[m].append(_signed(m, fs[m], os_[m]))
     alpha = (1.0 - level) / 2.0
     # point estimates from the reference library; the bootstrap sums reproduce them to rounding
     if reference_values:

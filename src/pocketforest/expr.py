@@ -90,7 +90,9 @@ def evaluate(node: Node, data: pd.DataFrame) -> np.ndarray:
     if isinstance(node, Pos):
         return np.maximum(evaluate(node.arg, data), 0.0)
     if isinstance(node, Log):
-        return np.log(evaluate(node.arg, data))
+        a = evaluate(node.arg, data)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return np.where(a > 0, np.log(np.where(a > 0, a, 1.0)), np.nan)  # NaN, never -inf, for a <= 0
     raise TypeError(f"unknown node {node!r}")
 
 
@@ -141,35 +143,7 @@ def formula_name(name: str) -> str:
     return f"Q({str_literal(name)})"
 
 
-# ---------------------------------------------------------------- human-readable printers
-
-def _fmt(value: float, digits: int = 4) -> str:
-    return f"{value:.{digits}g}"
-
-
-def to_text(node: Node) -> str:
-    """Plain-text form for equation.txt and summaries."""
-    if isinstance(node, Num):
-        return node.feature
-    if isinstance(node, Is):
-        return f"[{node.feature} = {node.level if node.level else '(missing)'}]"
-    if isinstance(node, Const):
-        return _fmt(node.value)
-    if isinstance(node, Sub):
-        if isinstance(node.right, Const) and node.right.value < 0:
-            return f"({to_text(node.left)} + {_fmt(-node.right.value)})"
-        return f"({to_text(node.left)} - {to_text(node.right)})"
-    if isinstance(node, Prod):
-        return " * ".join(to_text(i) for i in node.items)
-    if isinstance(node, Square):
-        inner = to_text(node.arg)
-        return f"{inner}^2" if isinstance(node.arg, (Sub, Num)) else f"({inner})^2"
-    if isinstance(node, Pos):
-        return f"max(0, {to_text(node.arg).removeprefix('(').removesuffix(')')})"
-    if isinstance(node, Log):
-        return f"log({to_text(node.arg)})"
-    raise TypeError(f"unknown node {node!r}")
-
+# ---------------------------------------------------------------- the statsmodels formula
 
 def to_formula(node: Node) -> str:
     """Expression inside I(...) of a statsmodels formula (numpy functions as np.*)."""

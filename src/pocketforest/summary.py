@@ -1,8 +1,10 @@
-"""The terminal summary after `distill`, and its JSON twin for ``--json``.
+"""The terminal summary after `distill`, its JSON twin for ``--json``, and the text of
+``Distillation.summary()`` and ``repr`` for a notebook.
 
 The text is printed from the dictionary that ``--json`` prints, so the two always show the same
 numbers: a compact scoreboard, the surrogates' fidelity and loss with intervals, the formula, the
-bundle path and the command that opens the report.
+bundle path and the command that opens the report. ``summary()`` shows the same scoreboard for a
+result not yet written, with the equation's coefficients, as a statsmodels results summary does.
 """
 from __future__ import annotations
 
@@ -24,14 +26,18 @@ def open_command(report: str, platform: str | None = None) -> str:
     return f"xdg-open {quoted}"
 
 
-def summary_dict(r, path: str) -> dict:
-    report = str(Path(path) / "report.html")
-    return {"bundle": path, "task": r.table.task, "target": r.table.target, "splits": r.splits.sizes(),
+def result_dict(r) -> dict:
+    """The numbers of a :class:`~pocketforest.pipeline.Distillation`, before any bundle exists."""
+    return {"task": r.table.task, "target": r.table.target, "splits": r.splits.sizes(),
             "oob": r.forest.oob, "evaluation": r.evaluation, "fidelity": r.fidelity, "loss": r.loss,
             "formula": r.equation.formula, "tree": {"depth": r.tree.depth, "leaves": r.tree.leaves},
             "importance": [i.to_dict() for i in r.importance], "warnings": r.warnings,
-            "plan": r.plan.to_dict() if r.plan is not None else None,
-            "report": report, "open_report": open_command(report),
+            "plan": r.plan.to_dict() if r.plan is not None else None}
+
+
+def summary_dict(r, path: str) -> dict:
+    report = str(Path(path) / "report.html")
+    return {"bundle": path, **result_dict(r), "report": report, "open_report": open_command(report),
             "verify": f"pocketforest verify {shlex.quote(path)}"}
 
 
@@ -39,11 +45,29 @@ def _f(v, fmt: str) -> str:
     return "–" if v is None else format(v, fmt)
 
 
+GAP = "    "  # between the text columns (fidelity, loss) and their neighbours
+
+
+def aligned_columns(rows: list[list[str]], right: list[bool]) -> list[str]:
+    """Rows of cells as lines, each column as wide as its widest cell (header included), numbers
+    right-aligned, text left-aligned, at least two spaces between any two cells."""
+    widths = [max(len(r[i]) for r in rows) for i in range(len(rows[0]))]
+    lines = []
+    for r in rows:
+        cells = []
+        for i, (cell, w) in enumerate(zip(r, widths)):
+            text = cell.rjust(w) if right[i] else cell.ljust(w)
+            sep = "" if i == 0 else ("  " if right[i] else GAP)
+            cells.append(sep + text)
+        lines.append("".join(cells).rstrip())
+    return lines
+
+
 def format_summary(d: dict) -> str:
-    """Text form of :func:`summary_dict`."""
+    """Text form of :func:`summary_dict`: every column sized to its contents, so large values
+    (a salary's rmse, a count's mae) never run into their neighbours."""
     ev = d["evaluation"]
     names = list(ev["forest"].keys())
-    width = max(10, *(len(n) + 2 for n in names))
     sp = d["splits"]
     lines = [f"pocketforest: {d['target']} ({d['task']}); rows {sp['discovery']} discovery / "
              f"{sp['confirmation']} confirmation / {sp['test']} test"]
@@ -56,24 +80,59 @@ def format_summary(d: dict) -> str:
         lo = d["loss"][m]
         loss[m] = (f"{lo['metric']} {_f(lo['value'], '+.4f')} "
                    f"({_f(lo['ci_low'], '+.4f')} to {_f(lo['ci_high'], '+.4f')})")
-    fid_w = max(len("fidelity"), *(len(v) for v in fid.values()))
-    loss_w = max(len("loss (95% interval)"), *(len(v) for v in loss.values()))
     on = (f"on {ev['n']} test rows" if ev.get("on") == "test"
           else f"{ev.get('repeats')}x{ev.get('folds')}-fold CV")
-    head = (f"{on:<16}" + "".join(f"{n:>{width}}" for n in names)
-            + f"    {'fidelity':<{fid_w}}    {'loss (95% interval)':<{loss_w}}")
-    head = head.rstrip()
-    lines += [head, "-" * len(head)]
-    for m in MODELS:
-        row = f"{m:<16}" + "".join(f"{_f(ev[m][n], '.4f'):>{width}}" for n in names)
-        lines.append((row + f"    {fid[m]:<{fid_w}}    {loss[m]:<{loss_w}}").rstrip())
+    rows = [[on] + names + ["fidelity", "loss (95% interval)"]]
+    rows += [[m] + [_f(ev[m][n], ".4f") for n in names] + [fid[m], loss[m]] for m in MODELS]
+    right = [False] + [True] * len(names) + [False, False]
+    table = aligned_columns(rows, right)
+    rule = "-" * max(len(line) for line in table)
+    lines += [table[0], rule] + table[1:]
     lines += ["", f"equation: {d['formula']}", f"tree:     depth {d['tree']['depth']}, {d['tree']['leaves']} leaves"]
     if d.get("warnings"):
         n = len(d["warnings"])
         lines.append(f"notes:    {n} (data and fitting notes; all in the report's first section)")
-    lines += ["", f"bundle:   {d['bundle']}", f"report:   {d['open_report']}", f"check:    {d['verify']}"]
+    if "bundle" in d:
+        lines += ["", f"bundle:   {d['bundle']}", f"report:   {d['open_report']}", f"check:    {d['verify']}"]
     return "\n".join(lines)
 
 
 def summary_text(r, path: str) -> str:
     return format_summary(summary_dict(r, path))
+
+
+def _coefficients(eq) -> list[str]:
+    """The equation's coefficient table (confirmation rows), columns sized to their contents."""
+    has_class = bool(eq.table) and "class" in eq.table[0]
+    head = (["class"] if has_class else []) + ["term", "estimate", "std error", "95% low", "95% high", "p"]
+    rows = [head] + [([c["class"]] if has_class else [])
+                     + [c["term"]] + [_f(c.get(k), ".4g") for k in ("estimate", "std_error", "ci_low", "ci_high")]
+                     + [_f(c.get("p_value"), ".3g")] for c in eq.table]
+    right = ([False] if has_class else []) + [False] + [True] * 5
+    table = aligned_columns(rows, right)
+    return [table[0], "-" * max(len(line) for line in table)] + table[1:]
+
+
+def result_text(r) -> str:
+    """What ``Distillation.summary()`` returns: the scoreboard, fidelity and loss, the formula, the
+    tree's size and the equation's coefficients, as text (numbers as in the ``--json`` output)."""
+    eq = r.equation
+    paper = eq.inference or eq        # the fit whose standard errors and p-values are for reading
+    lines = [format_summary(result_dict(r)), "",
+             f"coefficients: {eq.family} GLM, {eq.link} link, on the {paper.fit_on} rows (n = {paper.n})"]
+    lines += _coefficients(paper)
+    bt = paper.block_test
+    if bt:
+        lines.append(f"block test of the suggested terms: statistic {_f(bt.get('statistic'), '.4g')}, "
+                     f"df {bt.get('df')}, p = {_f(bt.get('p_value'), '.3g')}")
+    if eq.inference is not None:
+        lines.append(f"the exports carry these terms re-estimated on the {eq.fit_on} rows (n = {eq.n}, {eq.method})")
+    return "\n".join(lines)
+
+
+def result_line(r) -> str:
+    """One short line for ``repr(Distillation)``: what was fitted and how well the surrogates did."""
+    key = r.loss["tree"]["metric"]
+    scores = ", ".join(f"{m} {_f(r.evaluation[m].get(key), '.3f')}" for m in MODELS)
+    return (f"<Distillation {r.table.task} of {r.table.target!r}: test {key} {scores}; "
+            f"{len(r.equation.terms)} terms, tree of {r.tree.leaves} leaves>")

@@ -43,3 +43,12 @@ def test_coerce_text_in_numeric_reports_lines():
     msg = raises(r"column 'x' must be numeric but has 2 text values", coerce_for_scoring, raw, _features(),
                   source="new.csv", first_row=1000)
     assert "'bad' at line 1003" in msg and "'worse' at line 1005" in msg
+
+
+def test_coerce_value_beyond_float32_is_refused():
+    """A number beyond float32's range would reach the ONNX models as an infinity while the code
+    forms compute with it: score refuses it (IEEE 754 binary32 largest value 3.4028235e38)."""
+    raw = pd.DataFrame({"x": ["1", "1e39"], "size cm": ["1", "2"], "color": ["red", "red"]})
+    raises(r"column 'x' has values beyond ±3\.4e38 \(line 3\)", coerce_for_scoring, raw, _features(), source="new.csv")
+    raw.loc[1, "x"] = "1e30"
+    assert coerce_for_scoring(raw, _features(), source="new.csv")["x"].iloc[1] == 1e30

@@ -56,6 +56,19 @@ def test_read_errors(tmp_path, name, content, match):
     assert name in msg
 
 
+@pytest.mark.parametrize("header, value", [(";", "1.5"), ("dose; mg", "2.5"), ("a,", "x"), ("x|y", "3")])
+def test_one_column_named_with_another_delimiter_is_read(tmp_path, header, value):
+    """A single column may be called ';' or 'dose; mg': only a header that another delimiter
+    splits into names over data it splits too is refused (found by tests/test_fuzz.py)."""
+    import csv as _csv
+    path = tmp_path / ("d.tsv" if header == "a," else "d.csv")
+    with open(path, "w", newline="", encoding="utf-8") as fh:
+        w = _csv.writer(fh, delimiter="\t" if header == "a," else ",")
+        w.writerows([[header], [value], [value]])
+    df = read_table(path)
+    assert list(df.columns) == [header.strip()] and list(df.iloc[:, 0]) == [value, value]
+
+
 def test_truncated_parquet(tmp_path):
     good = tmp_path / "good.parquet"
     frame().to_parquet(good)

@@ -101,6 +101,19 @@ def test_flag_names_checked():
     raises(r"'y' is the target.*--categorical", prepare, df, "y", categorical=["y"])
 
 
+def test_names_with_the_spaces_of_the_header_cell_are_found(tmp_path):
+    """Header names are read without surrounding spaces, so a name given with the spaces the file
+    shows still means that column (found by tests/test_fuzz.py)."""
+    from intake_data import csv_text, write
+    df = frame().rename(columns={"y": "y (kg) ", "x": " x", "color": "color "})
+    path = write(tmp_path, "t.csv", csv_text(df))
+    t = load(path, "y (kg) ", categorical=["color "], ignore=[" x"])
+    assert t.target == "y (kg)" and [f.name for f in t.features] == ["color"]
+    # a DataFrame keeps its names as they are, spaces included
+    t = prepare(df, "y (kg) ", ignore=["color "])
+    assert t.target == "y (kg) " and [f.name for f in t.features] == [" x"]
+
+
 def test_too_few_rows():
     raises(r"too few rows \(30\) for the discovery/confirmation/test splits: need at least 40", prepare, frame(30), "y")
     assert len(prepare(frame(30), "y", min_rows=20).data) == 30
@@ -124,6 +137,16 @@ def test_infinite_feature_value():
     df = frame()
     df.loc[4, "x"] = "-Infinity"
     raises(r"column 'x' has infinite values \(line 6\)", prepare, df, "y")
+
+
+def test_feature_value_beyond_float32_is_refused():
+    """The models take float32 inputs (largest 3.4028235e38, IEEE 754 binary32): 1e39 would reach
+    them as an infinity, and scikit-learn refused it with a traceback (found by testing 1e39)."""
+    df = frame()
+    df.loc[7, "x"] = "-1e39"
+    raises(r"column 'x' has values beyond ±3\.4e38 \(line 9\).*32-bit", prepare, df, "y")
+    df.loc[7, "x"] = "3.4e38"        # just inside: accepted
+    assert prepare(df, "y").features[0].name == "x"
 
 
 def test_drops_ignored_constant_missing_and_id_like():

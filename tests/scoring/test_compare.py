@@ -165,3 +165,42 @@ def test_unknown_class_rows_are_left_out_and_counted(fitted, tmp_path):
     rows.to_csv(path, index=False)
     c = compare(bundle, path)
     assert c.rows_unknown_class == 5 and c.rows == len(rows) - 5
+
+
+def test_rows_without_a_prediction_are_left_out_and_counted(fitted, monkeypatch):
+    """Where the equation has no finite value its prediction is missing (README); compare judges
+    every model on the rows where all three predict, and says how many it left out."""
+    from pocketforest.scoring import compare as module
+    bundle, csv, _ = fitted["regression"]
+    real = module.Scorer.run
+
+    def run(self, frame):
+        out = real(self, frame)
+        if self.model == "equation":
+            out["prediction"][:3] = np.nan
+        return out
+
+    monkeypatch.setattr(module.Scorer, "run", run)
+    c = module.compare(bundle, csv)
+    assert c.rows_without_prediction == 3 and c.rows == len(pd.read_csv(csv)) - 3
+    assert all(np.isfinite(v) for m in ("forest", "tree", "equation") for v in c.evaluation[m].values())
+    assert "3 rows where the equation has no finite value left out" in c.text()
+
+
+def test_text_columns_are_sized_to_their_contents(fitted):
+    """A large outcome (rmse in the hundreds of millions) never runs into the next column."""
+    import re
+
+    from pocketforest.scoring.compare import compare, comparison_text
+    bundle, csv, _ = fitted["regression"]
+    d = compare(bundle, csv).to_dict()
+    for m in ("forest", "tree", "equation"):
+        d["evaluation"][m] = {k: v * 1e9 for k, v in d["evaluation"][m].items()}
+    lines = comparison_text(d).splitlines()
+    head = next(i for i, line in enumerate(lines) if line.startswith("model "))
+    names = list(d["evaluation"]["forest"])
+    ends = [m.end() for m in list(re.finditer(r"\S+", lines[head]))[1:1 + len(names)]]
+    for m, line in zip(("forest", "tree", "equation"), lines[head + 1:head + 4]):
+        cells = list(re.finditer(r"\S+", line))[1:1 + len(names)]
+        assert [c.group() for c in cells] == [f"{d['evaluation'][m][n]:.4f}" for n in names], line
+        assert [c.end() for c in cells] == ends, line

@@ -171,22 +171,30 @@ def test_tuned_sessions_give_the_same_predictions(bundles):
     np.testing.assert_allclose(one_by_one, outs[0][:3], rtol=1e-5)
 
 
-@pytest.mark.parametrize("name", ["regression", "multiclass"])
-def test_single_row_path_matches_batch(bundles, name):
-    """Scorer.predict_row (no pandas, for single-row latency) gives the batch results."""
-    bundle = bundles[name]
-    manifest = json.loads((bundle / "manifest.json").read_text())
-    ref = pd.read_csv(bundle / "reference.csv", keep_default_na=False, na_values=[""],
-                      dtype={f["name"]: str for f in manifest["features"] if f["kind"] == "categorical"})
-    names = [f["name"] for f in manifest["features"]]
-    rows = [{k: (None if isinstance(v, float) and np.isnan(v) else v) for k, v in r.items()}
-            for r in ref[names].to_dict("records")]
-    scorer = Scorer(bundle, "forest", latency=True)
-    batch = scorer.run(ref)
-    one = [scorer.predict_row(r) for r in rows]
-    if manifest["task"] == "regression":
-        np.testing.assert_array_equal(np.array(one), batch["prediction"])
-    else:
-        assert [o["label"] for o in one] == list(batch["label"])
-        np.testing.assert_array_equal([[o["probabilities"][c] for c in manifest["classes"]] for o in one],
-                                      batch["probabilities"])
+def test_keep_name_with_the_header_cell_spaces_is_found(bundles, tmp_path):
+    """Header names are read stripped, so ``--keep " row_id "`` means column row_id."""
+    data = _new_rows().rename(columns={"row_id": " row_id "})
+    data.to_csv(tmp_path / "a.csv", index=False)
+    score_file(str(bundles["regression"]), str(tmp_path / "a.csv"), "tree", str(tmp_path / "p.csv"),
+               keep=[" row_id "], quiet=True)
+    assert list(pd.read_csv(tmp_path / "p.csv").columns)[:2] == ["row_id", "prediction"]
+
+
+def test_an_error_in_a_later_chunk_closes_the_input_file(bundles, tmp_path):
+    """The input is closed when scoring stops on bad text, not left for the garbage collector
+    (the fuzz test saw the ResourceWarning of an unclosed file)."""
+    import gc
+    import warnings
+
+    from pocketforest.errors import InputError
+    data = _new_rows().astype({"x1": object})
+    data.loc[40, "x1"] = "oops"
+    data.to_csv(tmp_path / "a.csv", index=False)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        with pytest.raises(InputError, match="oops"):
+            score_file(str(bundles["regression"]), str(tmp_path / "a.csv"), "forest", str(tmp_path / "p.csv"),
+                       quiet=True, chunk_rows=10)
+        gc.collect()
+    assert not [w for w in caught if issubclass(w.category, ResourceWarning)], [str(w.message) for w in caught]
+    assert not (tmp_path / "p.csv").exists()

@@ -177,3 +177,41 @@ def test_wrong_collaborator_forms_fail_even_with_matching_checksums(copy):
         assert _lines(r.stdout, form)[0].startswith("FAIL"), (form, r.stdout)
     for form in ("equation.txt one-cell formulas (LibreOffice Calc)", "calculator.html equation (Chromium)"):
         assert _lines(r.stdout, form)[0].startswith("ok"), (form, r.stdout)
+
+
+def test_reference_rows_spell_missing_values_as_every_missing_text(bundles):
+    """reference.csv's closing rows hold intake's missing-value texts in every input cell, and
+    verify types them as missing (their reference predictions are the all-missing row's)."""
+    from pocketforest.intake.values import MISSING_TOKENS
+    from pocketforest.scoring.bundle_io import read_manifest
+    bundle = bundles["regression"]
+    m = read_manifest(bundle)
+    text = verify.read_reference_text(bundle, m)
+    names = [f["name"] for f in m["features"]]
+    spelled = text[names].apply(lambda col: col.str.strip().isin(MISSING_TOKENS - {""})).all(axis=1)
+    assert set(text.loc[spelled, names[0]].str.strip()) == MISSING_TOKENS - {""}
+    ref = verify.read_reference(bundle, m, text)
+    blank = ref[(text[names] == "").all(axis=1)]
+    assert len(blank) == 1
+    for model in ("forest", "tree", "equation"):
+        assert (ref.loc[spelled, f"pred_{model}"] == blank[f"pred_{model}"].iloc[0]).all()
+
+
+def test_a_printer_whose_missing_texts_drift_fails_verify(tmp_path, monkeypatch):
+    """Printers that drop 'NA' and 'null' from their list of missing-value texts write forms that
+    verify refuses, though every checksum matches and every ONNX model passes."""
+    from conftest import synthetic_table
+    from pocketforest.export import jscode, pycode, sql
+    from pocketforest.intake import prepare
+    from pocketforest.intake.values import MISSING_TOKENS
+    from pocketforest.pipeline import Settings, distill
+    r = distill(prepare(synthetic_table(n=300, seed=9), "y", source="drift.csv"),
+                Settings(trees=20, seed=1, quiet=True, bootstrap=50))
+    for module in (pycode, jscode, sql):
+        monkeypatch.setattr(module, "MISSING_TOKENS", MISSING_TOKENS - {"NA", "null"})
+    checks = verify.verify_bundle(r.write(tmp_path / "drifted"), quiet=True)
+    failed = sorted(c.form for c in checks if not c.ok)
+    assert all(c.ok for c in checks if "onnx" in c.form or c.form == "checksums")
+    for form in ("equation.py", "tree.py") + (("equation.js", "tree.js") if shutil.which("node") else ()):
+        assert any(f.startswith(form) for f in failed), (form, failed)
+    assert any(f.startswith("equation.sql (SQLite)") for f in failed), failed

@@ -10,6 +10,7 @@ from __future__ import annotations
 import json
 
 from ..expr import num_literal
+from ..intake.values import MISSING_TOKENS
 from ..thresholds import double_split
 from .dialect import Dialect, Inputs, linear_predictors, plain_number, print_expr
 from .tree_spec import TreeNode
@@ -21,10 +22,9 @@ def js_str(value: str) -> str:
 
 JS = Dialect(number=plain_number, text=js_str,
              is_level=lambda var, lit: f"({var} === {lit} ? 1.0 : 0.0)",
-             square=lambda a: f"_sq({a})", pos=lambda a: f"_pos({a})", log=lambda a: f"Math.log({a})")
+             square=lambda a: f"_sq({a})", pos=lambda a: f"_pos({a})", log=lambda a: f"_log({a})")
 
-_HELPERS = r'''var _MISSING_TEXT = ["", "NA", "N/A", "NaN", "nan", "null", "NULL", "None"];
-
+_HELPERS = r'''
 function _value(row, name) {
   if (!Object.prototype.hasOwnProperty.call(row, name)) {
     throw new Error("input column " + JSON.stringify(name) + " is missing from the row (pass null for a missing value)");
@@ -57,6 +57,10 @@ function _cat(row, name) {
 
 function _sq(v) { return v * v; }
 function _pos(v) { return v > 0.0 ? v : 0.0; }
+// NaN for v <= 0 (only beyond the training range): the prediction is then missing
+function _log(v) { return v > 0.0 ? Math.log(v) : NaN; }
+// a value that is not a finite number (a log of v <= 0, an overflow) is missing: null
+function _finite(v) { return Number.isFinite(v) ? v : null; }
 
 function _probabilities(etas) {
   // softmax written as 1 / sum(exp(e_j - e_k)): no overflow for large scores
@@ -65,6 +69,12 @@ function _probabilities(etas) {
     for (var j = 0; j < etas.length; j++) s += Math.exp(etas[j] - k);
     return 1.0 / s;
   });
+}
+
+function _missing() {
+  var probabilities = {};
+  for (var k = 0; k < CLASSES.length; k++) probabilities[CLASSES[k]] = null;
+  return { label: null, probabilities: probabilities };
 }
 
 function _result(p) {
@@ -92,6 +102,8 @@ def _header(kind: str, meta: dict) -> list[str]:
     return ["// pocketforest " + kind + " export: call predict(row) with an object keyed by column name.",
             "// A missing value is null. Regression returns a number; classification returns",
             "// {label, probabilities: {class: p, ...}}. Target, task and classes are given below as data.",
+            *(["// Where the equation has no finite value, the prediction (label, probabilities) is null."]
+              if kind == "equation" else []),
             f"// Defines predict and pocketforest_{kind} (so equation.js and tree.js can share one page).",
             f"var pocketforest_{kind} = (function () {{",
             '"use strict";',
@@ -100,7 +112,13 @@ def _header(kind: str, meta: dict) -> list[str]:
             f"var CLASSES = [{', '.join(js_str(c) for c in classes)}];",
             f"var TOOL_VERSION = {js_str(meta['tool_version'])};",
             "",
+            _missing_text(),
             _HELPERS]
+
+
+def _missing_text() -> str:
+    """The cell texts that mean "missing", read from intake's one list (so they cannot drift)."""
+    return "var _MISSING_TEXT = [" + ", ".join(js_str(t) for t in sorted(MISSING_TOKENS)) + "];"
 
 
 def _bind(inputs: Inputs) -> list[str]:
@@ -119,11 +137,12 @@ def equation_js(eq, meta: dict) -> str:
     lines = _header("equation", meta) + ["// " + eq.source_line, "function predict(row) {"] + _bind(inputs)
     if eq.task == "regression":
         lines.append(f"  var eta = {etas[0]};")
-        lines.append("  return eta;" if eq.link == "identity" else "  return Math.exp(eta);")
+        lines.append("  return _finite(eta);" if eq.link == "identity" else "  return _finite(Math.exp(eta));")
     else:
         lines.append("  var etas = [0.0];")
         for e in etas:
             lines.append(f"  etas.push({e});")
+        lines.append("  if (!etas.every(Number.isFinite)) return _missing();")
         lines.append("  return _result(_probabilities(etas));")
     lines.append("}")
     return "\n".join(lines) + "\n" + _FOOTER.format(kind="equation")

@@ -2,7 +2,9 @@
 
 Forest and tree are converted by skl2onnx (float32, as the runtime requires for tree ensembles);
 the equation is assembled from its expression trees with ``onnx.helper`` and computed in double
-precision inside the graph.
+precision inside the graph, its regression output included. Where the equation has no finite value
+(the log of a value <= 0, or an overflow) its prediction is missing: NaN, and for classification
+NaN probabilities with the label "" — the same outcome as every printed form (see the README).
 """
 from __future__ import annotations
 
@@ -93,10 +95,15 @@ class _GraphBuilder:
         self.count = 0
         self.inputs = {f.name: f for f in features}
         self.cache: dict = {}
+        # an input may be called "c_9" (a column named 9): generated names must never meet one
+        self.taken = {f.onnx_input for f in features} | {"prediction", "label", "probabilities"}
 
     def name(self, stem: str) -> str:
-        self.count += 1
-        return f"{stem}_{self.count}"
+        while True:
+            self.count += 1
+            name = f"{stem}_{self.count}"
+            if name not in self.taken:
+                return name
 
     def const(self, value, dtype=np.float64) -> str:
         arr = np.asarray(value, dtype=dtype) if dtype is not object else np.asarray(value, dtype=object)
@@ -153,8 +160,27 @@ class _GraphBuilder:
         if isinstance(node, Pos):
             return self.op("Max", [self.emit(node.arg), self.const([[0.0]])])
         if isinstance(node, Log):
-            return self.op("Log", [self.emit(node.arg)])
+            # the log of a value <= 0 (possible only beyond the training range) is NaN, as in
+            # every printed form, never -inf
+            a = self.emit(node.arg)
+            positive = self.op("Greater", [a, self.const([[0.0]])])
+            return self.op("Where", [positive, self.op("Log", [a]), self.const([[np.nan]])])
         raise TypeError(f"unknown node {node!r}")
+
+    def zero_column(self) -> str:
+        """Zeros, one per row of the first input (whatever its values), for an intercept-only
+        equation: a 0/1 flag of the input times 0."""
+        f = next(iter(self.inputs.values()))
+        if f.kind == "numeric":
+            flag = self.op("IsNaN", [f.onnx_input])
+        else:
+            codes, _ = self.level_codes(f.name)
+            flag = self.op("Equal", [codes, self.const([[0]], np.int64)])
+        return self.op("Mul", [self.op("Cast", [flag], to=TensorProto.DOUBLE), self.const([[0.0]])])
+
+    def missing_if_not_finite(self, x: str) -> str:
+        """NaN where ``x`` is ±inf (NaN stays NaN): the prediction is missing there."""
+        return self.op("Where", [self.op("IsInf", [x]), self.const([[np.nan]]), x])
 
 
 def _explain_outputs(g: _GraphBuilder, eq: EquationFit, design: str, eta: str) -> list:
@@ -181,17 +207,26 @@ def equation_model(eq: EquationFit, features: list[Feature], metadata: dict) -> 
     """The GLM as a graph: raw inputs → imputed terms → linear predictor → inverse link."""
     g = _GraphBuilder(features)
     cols = [g.emit(c.node) for c in eq.columns]
-    design = g.op("Concat", cols, axis=1) if len(cols) > 1 else cols[0]
     coef = np.asarray(eq.coef, dtype=np.float64)
+    if not cols:
+        # intercept only (no variable earned a term): one zero column, as many rows as the input
+        cols = [g.zero_column()]
+        coef = np.concatenate([coef[:1], np.zeros_like(coef[:1])])
+    design = g.op("Concat", cols, axis=1) if len(cols) > 1 else cols[0]
     weights = coef[1:].reshape(len(cols), -1)
     eta = g.op("Add", [g.op("MatMul", [design, g.const(weights)]), g.const(coef[0].reshape(1, -1))])
     explain = _explain_outputs(g, eq, design, eta)
     outputs = []
     if eq.task == "regression":
+        # double output: a prediction beyond float32's range (an input of 1e30 in a squared term)
+        # stays the number the printed forms give, instead of becoming an infinity
         mean = eta if eq.link == "identity" else g.op("Exp", [eta])
-        g.nodes.append(helper.make_node("Cast", [mean], ["prediction"], to=TensorProto.FLOAT))
-        outputs.append(helper.make_tensor_value_info("prediction", TensorProto.FLOAT, [None, 1]))
+        g.nodes.append(helper.make_node("Identity", [g.missing_if_not_finite(mean)], ["prediction"]))
+        outputs.append(helper.make_tensor_value_info("prediction", TensorProto.DOUBLE, [None, 1]))
     else:
+        # one non-finite score makes the whole row missing: eta * 0 is NaN exactly there
+        spoil = g.op("ReduceSum", [g.op("Mul", [eta, g.const([[0.0]])]), g.const([1], np.int64)], keepdims=1)
+        eta = g.op("Add", [eta, spoil])
         if len(eq.classes) == 2:
             p1 = g.op("Sigmoid", [eta])
             probs = g.op("Concat", [g.op("Sub", [g.const([[1.0]]), p1]), p1], axis=1)
@@ -201,7 +236,11 @@ def equation_model(eq: EquationFit, features: list[Feature], metadata: dict) -> 
             probs = g.op("Softmax", [g.op("Concat", [zeros, eta], axis=1)], axis=1)
         idx = g.op("ArgMax", [probs], axis=1, keepdims=0)
         classes = g.const(np.array(eq.classes, dtype=object), object)
-        g.nodes.append(helper.make_node("Gather", [classes, idx], ["label"], axis=0))
+        label = g.op("Gather", [classes, idx], axis=0)
+        first = g.op("Slice", [probs, g.const([0], np.int64), g.const([1], np.int64), g.const([1], np.int64)])
+        missing = g.op("Squeeze", [g.op("IsNaN", [first]), g.const([1], np.int64)])
+        g.nodes.append(helper.make_node("Where", [missing, g.const(np.array([""], dtype=object), object), label],
+                                        ["label"]))
         g.nodes.append(helper.make_node("Cast", [probs], ["probabilities"], to=TensorProto.FLOAT))
         outputs += [helper.make_tensor_value_info("label", TensorProto.STRING, [None]),
                     helper.make_tensor_value_info("probabilities", TensorProto.FLOAT, [None, len(eq.classes)])]

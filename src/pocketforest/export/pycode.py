@@ -7,6 +7,7 @@ a comment.
 from __future__ import annotations
 
 from ..expr import num_literal
+from ..intake.values import MISSING_TOKENS
 from ..thresholds import double_split
 from .dialect import Dialect, Inputs, linear_predictors, plain_number
 from .tree_spec import TreeNode
@@ -20,8 +21,7 @@ PY = Dialect(number=plain_number, text=py_str,
              is_level=lambda var, lit: f"(1.0 if {var} == {lit} else 0.0)",
              square=lambda a: f"_sq({a})", pos=lambda a: f"_pos({a})", log=lambda a: f"_log({a})")
 
-_HELPERS = '''_MISSING_TEXT = frozenset({"", "NA", "N/A", "NaN", "nan", "null", "NULL", "None"})
-
+_HELPERS = '''
 
 def _value(row, name):
     if name not in row:
@@ -68,9 +68,13 @@ def _pos(v):
 
 
 def _log(v):
-    if v > 0.0:
-        return math.log(v)
-    return float("-inf") if v == 0.0 else float("nan")
+    """NaN for v <= 0 (only beyond the training range): the prediction is then missing."""
+    return math.log(v) if v > 0.0 else float("nan")
+
+
+def _finite(v):
+    """A value that is not a finite number (a log of v <= 0, an overflow) is missing: None."""
+    return v if math.isfinite(v) else None
 
 
 def _exp(v):
@@ -86,6 +90,8 @@ def _probabilities(etas):
 
 
 def _classify(etas):
+    if not all(math.isfinite(e) for e in etas):
+        return {"label": None, "probabilities": {c: None for c in CLASSES}}
     p = _probabilities(etas)
     best = max(range(len(p)), key=lambda k: p[k])
     return {"label": CLASSES[best], "probabilities": dict(zip(CLASSES, p))}
@@ -98,6 +104,8 @@ def _header(kind: str, meta: dict) -> list[str]:
             "",
             "Standard library only. A missing value is None. Regression returns a number;",
             "classification returns {'label': ..., 'probabilities': {class: p, ...}}.",
+            *(["Where the equation has no finite value, the prediction (label, probabilities) is None."]
+              if kind == "equation" else []),
             "The target, task and classes are given below as data.",
             '"""',
             "import math",
@@ -107,7 +115,13 @@ def _header(kind: str, meta: dict) -> list[str]:
             f"CLASSES = ({''.join(py_str(c) + ', ' for c in classes)})",
             f"TOOL_VERSION = {py_str(meta['tool_version'])}",
             "",
+            _missing_text(),
             _HELPERS]
+
+
+def _missing_text() -> str:
+    """The cell texts that mean "missing", read from intake's one list (so they cannot drift)."""
+    return "_MISSING_TEXT = frozenset({" + ", ".join(py_str(t) for t in sorted(MISSING_TOKENS)) + "})"
 
 
 def _bind(inputs: Inputs) -> list[str]:
@@ -126,7 +140,7 @@ def equation_py(eq, meta: dict) -> str:
     lines = _header("equation", meta) + ["# " + eq.source_line, "", "def predict(row):"] + _bind(inputs)
     if eq.task == "regression":
         lines.append(f"    eta = {etas[0]}")
-        lines.append("    return eta" if eq.link == "identity" else "    return _exp(eta)")
+        lines.append("    return _finite(eta)" if eq.link == "identity" else "    return _finite(_exp(eta))")
     else:
         lines.append("    etas = [0.0]")
         for e in etas:

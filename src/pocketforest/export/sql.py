@@ -5,13 +5,15 @@ The statement returns ``input_rows.*`` plus ``prediction`` (regression) or ``lab
 ``prob_<class>`` (classification). Each output column is a correlated scalar subquery whose
 innermost level reads and imputes the inputs once, so nothing from the data has to be named
 except through quoted identifiers (double quotes, embedded quotes doubled) and string literals
-(single quotes, embedded quotes doubled). A missing value is ``NULL``; categories are compared as
-text (``CAST(... AS VARCHAR)``), numbers as doubles (``CAST(... AS DOUBLE)``). Numbers are printed
+(single quotes, embedded quotes doubled). A missing value is ``NULL`` or a missing-value text
+(``'NA'``, ``'null'``, ... as in intake); categories are compared as text without surrounding
+spaces (``TRIM(CAST(... AS VARCHAR))``), numbers as doubles (``CAST(... AS DOUBLE)``). Numbers are printed
 in exponent form (``2.5e0``) so DuckDB reads them as DOUBLE rather than DECIMAL.
 """
 from __future__ import annotations
 
 from ..expr import num_literal, sql_ident, sql_string
+from ..intake.values import MISSING_TOKENS
 from ..thresholds import double_split
 from .dialect import Dialect, Inputs, linear_predictors
 from .tree_spec import TreeNode
@@ -38,20 +40,29 @@ SQL = Dialect(number=sql_number, text=sql_string,
               square=lambda a: f"({a}) * ({a})", pos=_pos, log=_log)
 
 _HEADER = """-- pocketforest {kind} export: one SELECT over the table input_rows.
--- Returns every column of input_rows plus the prediction columns. Missing values are NULL.
+-- Returns every column of input_rows plus the prediction columns. A missing value is NULL or
+-- a missing-value text such as 'NA' (surrounding spaces ignored).
 -- Runs unchanged in SQLite (3.35+, math functions) and DuckDB.
 """
 
 
 def _read_inputs(inputs: Inputs) -> str:
-    """The innermost level: each input read once from the outer row, imputed, as a generated name."""
+    """The innermost level: each input read once from the outer row, imputed, as a generated name.
+
+    A cell is missing when it is NULL or its text, without surrounding spaces, is one of intake's
+    missing-value tokens (so ``'NA'`` in a text column, or a DuckDB NaN, which prints as ``nan``):
+    the same rule as ``score`` and the Python and JavaScript exports.
+    """
     parts = []
+    missing = "(" + ", ".join(sql_string(t) for t in sorted(MISSING_TOKENS)) + ")"
     for ref in inputs:
         col = f"input_rows.{sql_ident(ref.feature)}"
+        text = f"TRIM(CAST({col} AS VARCHAR))"
         if ref.kind == "numeric":
-            parts.append(f"COALESCE(CAST({col} AS DOUBLE), {sql_number(ref.fill)}) AS {ref.var}")
+            parts.append(f"CASE WHEN {col} IS NULL OR {text} IN {missing} THEN {sql_number(ref.fill)} "
+                         f"ELSE CAST({col} AS DOUBLE) END AS {ref.var}")
         else:
-            parts.append(f"COALESCE(CAST({col} AS VARCHAR), '') AS {ref.var}")
+            parts.append(f"CASE WHEN {col} IS NULL OR {text} IN {missing} THEN '' ELSE {text} END AS {ref.var}")
     return "SELECT " + ", ".join(parts) if parts else "SELECT 0 AS unused"
 
 
@@ -70,24 +81,33 @@ def _argmax_case(scores: list[str], labels: list[str]) -> str:
     return "CASE " + " ".join(whens) + f" ELSE {sql_string(labels[-1])} END"
 
 
+#: The largest finite double; ``ABS(v) <= LARGEST`` is false for ±inf, NaN (DuckDB) and NULL.
+LARGEST = "1.7976931348623157e308"
+
+
 def equation_sql(eq, meta: dict) -> str:
     return "-- " + eq.source_line + "\n" + _equation_sql(eq, meta)
 
 
 def _equation_sql(eq, meta: dict) -> str:
+    """Where the equation has no finite value (the log of a value <= 0, an overflow) every output
+    is NULL, as every other form gives a missing prediction there."""
     inputs = Inputs(prefix="i.")
     etas = linear_predictors(eq, SQL, inputs)
     inner = _read_inputs(inputs)
     if eq.task == "regression":
         value = "e.eta_1" if eq.link == "identity" else "EXP(e.eta_1)"
         scores = f"SELECT {etas[0]} AS eta_1 FROM ({inner}) AS i"
-        return _statement("equation", [("prediction", f"SELECT {value} FROM ({scores}) AS e")])
+        means = f"SELECT {value} AS mean FROM ({scores}) AS e"
+        return _statement("equation", [("prediction", f"SELECT CASE WHEN ABS(m.mean) <= {LARGEST} THEN m.mean END "
+                                                      f"FROM ({means}) AS m")])
     names = ["0.0e0"] + [f"e.eta_{k + 1}" for k in range(len(etas))]
+    finite = " AND ".join(f"ABS({n}) <= {LARGEST}" for n in names[1:])
     scores = "SELECT " + ", ".join(f"{x} AS eta_{k + 1}" for k, x in enumerate(etas)) + f" FROM ({inner}) AS i"
-    outputs = [("label", f"SELECT {_argmax_case(names, eq.classes)} FROM ({scores}) AS e")]
+    outputs = [("label", f"SELECT CASE WHEN {finite} THEN {_argmax_case(names, eq.classes)} END FROM ({scores}) AS e")]
     for k, cls in enumerate(eq.classes):
         denom = " + ".join(f"EXP({names[j]} - {names[k]})" for j in range(len(names)))
-        outputs.append((f"prob_{cls}", f"SELECT 1.0e0 / ({denom}) FROM ({scores}) AS e"))
+        outputs.append((f"prob_{cls}", f"SELECT CASE WHEN {finite} THEN 1.0e0 / ({denom}) END FROM ({scores}) AS e"))
     return _statement("equation", outputs)
 
 

@@ -53,11 +53,25 @@ def examples(s: pd.Series, mask: np.ndarray, lines: np.ndarray) -> str:
     return ", ".join(parts) + more
 
 
+#: The largest magnitude a model input can carry: every ONNX graph takes numbers as float32.
+FLOAT32_MAX = float(np.finfo(np.float32).max)
+
+
 def check_finite(values: np.ndarray, col: str, lines: np.ndarray, source: str) -> None:
+    """Infinite numbers, and numbers beyond float32's range (they would reach the models as
+    infinities), are input errors."""
     inf = np.isinf(values)
     if inf.any():
         where = ", ".join(str(int(x)) for x in lines[np.flatnonzero(inf)[:EXAMPLES]])
         raise InputError(
             f"{source}: column '{col}' has infinite values (line {where}{', ...' if inf.sum() > EXAMPLES else ''}): "
             "replace them with finite numbers or leave the cells empty"
+        )
+    with np.errstate(invalid="ignore"):
+        huge = np.abs(values) > FLOAT32_MAX
+    if huge.any():
+        where = ", ".join(str(int(x)) for x in lines[np.flatnonzero(huge)[:EXAMPLES]])
+        raise InputError(
+            f"{source}: column '{col}' has values beyond ±3.4e38 (line {where}{', ...' if huge.sum() > EXAMPLES else ''}), "
+            "more than the models' 32-bit inputs hold: rescale the column or leave those cells empty"
         )

@@ -83,15 +83,18 @@ def iter_table(
         names, kwargs = _csv_selection(header, columns, sep)
         with _csv_errors(p, sep, header):
             reader = pd.read_csv(p, chunksize=chunksize, **kwargs)
-        while True:
-            # the warnings filter must not stay active while the caller runs, so enter per chunk
-            with _csv_errors(p, sep, header):
-                chunk = next(reader, None)
-            if chunk is None:
-                break
-            chunk = _finish_csv_frame(chunk.reset_index(drop=True), names, p)
-            yield first, chunk
-            first += len(chunk)
+        try:
+            while True:
+                # the warnings filter must not stay active while the caller runs, so enter per chunk
+                with _csv_errors(p, sep, header):
+                    chunk = next(reader, None)
+                if chunk is None:
+                    break
+                chunk = _finish_csv_frame(chunk.reset_index(drop=True), names, p)
+                yield first, chunk
+                first += len(chunk)
+        finally:
+            reader.close()   # also when the caller stops early (an error in a later chunk)
     if first == 0:
         raise InputError(f"{p}: has a header but no data rows: add rows below the header")
 
@@ -161,11 +164,15 @@ def _csv_header(p: Path, sep: str) -> list[str]:
     try:
         with open(p, encoding="utf-8-sig", newline="") as fh:
             row: list[str] = []
-            for row in csv.reader(fh, delimiter=sep):
+            first: list[str] = []   # the first data row, to tell a stray delimiter from a name
+            reader = csv.reader(fh, delimiter=sep)
+            for row in reader:
                 if any(cell.strip() for cell in row):
                     break
             else:
                 row = []
+            if len(row) == 1:
+                first = next((r for r in reader if any(cell.strip() for cell in r)), [])
     except UnicodeDecodeError:
         raise _not_utf8(p) from None
     except csv.Error as exc:
@@ -174,7 +181,7 @@ def _csv_header(p: Path, sep: str) -> list[str]:
         raise InputError(f"{p}: is empty: it needs a header line and data rows")
     header = [cell.strip() for cell in row]
     if len(header) == 1:
-        _check_delimiter(p, sep, header[0])
+        _check_delimiter(p, sep, header[0], first[0] if len(first) == 1 else None)
     blank = [str(i + 1) for i, name in enumerate(header) if not name]
     if blank:
         where = "position" if len(blank) == 1 else "positions"
@@ -188,10 +195,15 @@ def _csv_header(p: Path, sep: str) -> list[str]:
     return header
 
 
-def _check_delimiter(p: Path, sep: str, only: str) -> None:
-    """A one-column header holding another delimiter means the file is split wrongly."""
+def _check_delimiter(p: Path, sep: str, only: str, row: str | None) -> None:
+    """A one-column header that another delimiter splits into names, over a first data row that
+    holds it too (or no data row), means the file is split wrongly; a single column may still be
+    called ``;`` or ``dose; mg`` (the fuzz test met one)."""
     for other in ("\t", ";", ",", "|"):
-        if other != sep and other in only:
+        parts = only.split(other)
+        if other == sep or sum(1 for part in parts if part.strip()) < 2:
+            continue
+        if row is None or other in row:
             if other == "\t":
                 hint = "rename it to .tsv"
             elif other == ",":

@@ -47,6 +47,15 @@ def load(
     )
 
 
+def column_named(name: str, columns: Sequence[str]) -> str:
+    """The column a user means by ``name``: itself, or without surrounding spaces, since header
+    names are read stripped (a header cell ``"9( "`` is column ``"9("``). Unknown names are
+    returned as given, for the caller's message."""
+    if name in columns or name.strip() not in columns:
+        return name
+    return name.strip()
+
+
 def prepare(
     df: pd.DataFrame,
     target: str,
@@ -71,8 +80,9 @@ def prepare(
         raise InputError(f"{source}: duplicate column names {quote_list(dups)}: rename them so each is unique")
     if task not in ("auto", "regression", "classification"):
         raise InputError(f"unknown task '{task}': use auto, regression or classification")
-    categorical = [str(c) for c in categorical]
-    ignore = [str(c) for c in ignore]
+    target = column_named(str(target), columns)
+    categorical = [column_named(str(c), columns) for c in categorical]
+    ignore = [column_named(str(c), columns) for c in ignore]
 
     if target not in columns:
         raise InputError(f"{source}: no target column '{target}'{suggest(target, columns)}")

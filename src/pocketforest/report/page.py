@@ -220,8 +220,33 @@ def _importance(m: dict) -> str:
     caption = ("Out-of-bag permutation importance (Breiman 2001): for each tree, the error on the rows its "
                "bootstrap left out, before and after shuffling one raw column. Bars are means over trees; "
                "whiskers ±1.96 standard errors." + (" Only the top 20 are drawn." if len(imp) > 20 else ""))
-    return _figure(fig, caption) + _table(["variable", "importance", "standard error"],
-                                          [[i["feature"], i["mean"], i["se"]] for i in imp])
+    return (_figure(fig, caption) + _table(["variable", "importance", "standard error"],
+                                           [[i["feature"], i["mean"], i["se"]] for i in imp])
+            + _screening((m.get("discovery") or {}).get("materiality") or {}))
+
+
+def _screening(mat: dict) -> str:
+    """The importance test per variable and the clusters of strongly correlated columns, from the
+    typed records discovery keeps in the manifest (``discovery.materiality``): the detail behind
+    the notes, in columns, never read from a note's wording."""
+    variables = mat.get("variables") or {}
+    if not variables:
+        return ""
+    rows = [[name, ev.get("oob_importance"), ev.get("oob_se"), ev.get("z"), _yes_no(ev.get("passed")),
+             _yes_no(ev.get("requested")), ev.get("decision", "–")] for name, ev in variables.items()]
+    rule = mat.get("rule")
+    parts = ["<h3>Is each variable's importance more than noise?</h3>",
+             (f"<p>Rule: {_e(rule)}.</p>" if isinstance(rule, str) and rule else ""),
+             _table(["variable", "importance", "standard error", "z", "passed", "asked for", "decision"], rows)]
+    clusters = mat.get("correlated_clusters") or []
+    if clusters:
+        parts += ["<h3>Strongly correlated columns</h3>",
+                  "<p>Importance is shared out within each cluster, and partial dependence extrapolates for "
+                  "its members, so their shapes come from accumulated local effects.</p>",
+                  _table(["cluster", "columns", "largest |Spearman|"],
+                         [[str(i + 1), ", ".join(c.get("variables") or []), c.get("max_abs_spearman")]
+                          for i, c in enumerate(clusters)])]
+    return "".join(parts)
 
 
 def _term_text(t, var: str) -> str:
@@ -261,21 +286,51 @@ def _shapes(r, m: dict) -> str:
             + "<div class='grid'>" + "".join(panels) + "</div>")
 
 
+#: The figures a pair record may carry, in the order the table shows them; a column appears when
+#: any record has it.
+_PAIR_COLUMNS = [("h2", "H²"), ("strength", "strength"), ("null_h2", "null H²"),
+                 ("null_strength", "null strength"), ("strength_threshold", "threshold")]
+
+
+def _yes_no(v) -> str:
+    return "–" if v is None else ("yes" if v else "no")
+
+
 def _interactions(m: dict) -> str:
     inter = [i for i in (m.get("interactions") or []) if len(i.get("variables", [])) == 2]
     if not inter:
         return _absent("The discovery step measured no pair of variables in this bundle, so there is "
                        "no interaction matrix; the equation holds main effects only.")
     fig = plots.interaction_plot(inter)
+    products = any("product" in it for it in inter)
+    figures = [(k, label) for k, label in _PAIR_COLUMNS if any(k in it for it in inter)]
+    head = ["pair", "kind"] + [label for _, label in figures] + ["kept"] + (["product R²"] if products else [])
     rows = []
     for it in sorted(inter, key=lambda i: -(i.get("h2") or 0)):
-        extra = {k: v for k, v in it.items() if k not in ("variables", "h2") and isinstance(v, (int, float, bool, str))}
-        rows.append([" × ".join(it["variables"]), it.get("h2"),
-                     "; ".join(f"{k.replace('_', ' ')} {_num(v) if isinstance(v, float) else _e(v)}" for k, v in extra.items())])
+        row = [" × ".join(it["variables"]), it.get("kind", "–")] + [it.get(k) for k, _ in figures]
+        row.append(_yes_no(it.get("kept")))
+        if products:
+            row.append((it.get("product") or {}).get("r2_product"))
+        rows.append(row)
+    about = []
+    rules = list(dict.fromkeys(it["threshold_rule"] for it in inter if it.get("threshold_rule")))
+    if rules:
+        about.append("Threshold: " + "; ".join(_e(rule) for rule in rules) + ".")
+    sizes = sorted({int(it["rows"]) for it in inter if it.get("rows") is not None})
+    if sizes:
+        about.append("Measured on " + " or ".join(str(n) for n in sizes) + " discovery rows.")
+    if products:
+        about.append("Product R²: the share of a kept numeric pair's interaction surface that a centred "
+                     "product of the two columns recovers.")
+    nulls = ("The null columns are the same figures in a forest grown on an additive version of the data, "
+             "where any interaction is noise. " if any(k.startswith("null_") for k, _ in figures) else "")
+    legend = ("<p class='note'>Strength: the root mean square of the pair's joint effect beyond the two "
+              "separate effects, relative to the spread of the forest's predictions. " + nulls
+              + "Kept: the pair was put forward as a term for the equation. " + " ".join(about) + "</p>")
     return (_figure(fig, "Friedman &amp; Popescu's H² for each measured pair (2008, eq. 44): the share of the "
                     "pair's joint partial dependence not explained by the two variables separately. H² is "
                     "large for pairs whose joint effect is tiny, so read it beside the pair's strength.")
-            + _table(["pair", "H²", "other measures"], rows))
+            + _table(head, rows) + legend)
 
 
 def _present(files: set[str] | None, name: str) -> bool:
@@ -350,9 +405,8 @@ def _equation(r, m: dict, files: set[str] | None = None) -> str:
                      "main-effects equation in rows that did not choose them.</p>")
     else:
         parts.append("<p>No terms beyond the main effects were suggested, so there is no block to test.</p>")
-    notes = list(eq.get("notes") or []) + [n for n in getattr(r.equation, "notes", []) if n not in (eq.get("notes") or [])]
-    if notes:
-        parts.append("<ul class='warn'>" + "".join(f"<li>{_e(n)}</li>" for n in notes) + "</ul>")
+    if eq.get("note"):
+        parts.append(f"<p class='note'>{_e(eq['note'])}</p>")
     return "".join(parts)
 
 
@@ -477,7 +531,8 @@ def _elsewhere(m: dict, files: set[str] | None) -> str:
                  if m["task"] == "regression" else
                  "<code>label_&lt;model&gt;</code> and <code>prob_&lt;model&gt;_&lt;class&gt;</code>")
     parts += ["<h3>Check your runtime against the reference rows</h3>",
-              f"<p><code>reference.csv</code> holds input rows (every category, and rows with missing values) with "
+              f"<p><code>reference.csv</code> holds input rows (every category, and rows with missing values, the last "
+              "ones spelled as missing-value texts such as <code>NA</code>) with "
               f"each model's prediction as computed by the fitting libraries: {pred_cols}. Score those rows "
               "with your runtime and compare: values should agree to about 1e-4 (ONNX tree ensembles compute in "
               "float32). Where pocketforest is installed, one command checks every form and every checksum:</p>",

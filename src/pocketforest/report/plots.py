@@ -10,6 +10,7 @@ from __future__ import annotations
 import io
 import itertools
 import re
+import warnings
 
 import matplotlib
 
@@ -41,7 +42,10 @@ def figure(w: float, h: float, left: float = 0.55, bottom: float = 0.45, right: 
 def to_svg(fig, label: str) -> str:
     """The figure as an inline ``<svg>`` with a title for screen readers; closes the figure."""
     buf = io.StringIO()
-    with plt.rc_context(_RC):
+    with plt.rc_context(_RC), warnings.catch_warnings():
+        # text stays text in the SVG (svg.fonttype "none") and the browser draws it with its own
+        # fonts, so a letter DejaVu Sans lacks (a CJK column name) is no reason to warn the user
+        warnings.filterwarnings("ignore", message=r"Glyph \d+ .* missing from font", category=UserWarning)
         fig.savefig(buf, format="svg",
                     metadata={"Date": None, "Creator": None, "Format": None, "Type": None})
     plt.close(fig)

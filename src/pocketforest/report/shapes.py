@@ -2,8 +2,8 @@
 
 The forest curve is Friedman's (2001) partial dependence from scikit-learn ``partial_dependence``
 (the exact ``recursion`` method for regression forests on numeric columns, ``brute`` on a
-sample of discovery rows otherwise). When the discovery step already stored a curve in
-``discovery.shapes[var]`` that curve is used as is. The equation's curve is its own partial
+sample of discovery rows otherwise). When the discovery step already recorded a curve on the
+prediction's scale (``discovery.shapes[var]``: ``grid``, ``pd``, ``scale``), that curve is used as is. The equation's curve is its own partial
 dependence on the same grid: the fitted GLM evaluated (through its expression trees) on the same
 sample rows with the variable set to each grid value, averaged — so both lines answer the same
 question and can be read against each other.
@@ -32,7 +32,7 @@ def material_variables(r, m: dict) -> list[str]:
     uncertainty, common practice); when none qualifies the three highest are shown.
     """
     order = [i["feature"] for i in m["importance"]]
-    stored = [v for v in order if v in (getattr(r.discovery, "shapes", None) or {})]
+    stored = [v for v in order if v in r.discovery.shapes]
     if stored:
         return stored[:MAX_PANELS]
     clear = [i["feature"] for i in m["importance"]
@@ -53,8 +53,8 @@ def shape_curves(r, m: dict, variables: list[str]) -> list[dict]:
         equation = _equation_pd(r, sample, var, grid, f.kind)
         scale = _scale(r)
         if stored:
-            # A stored curve may have been centred by the step that made it; centre both lines so
-            # their shapes compare whatever convention it used.
+            # Centre both lines so their shapes compare (the stored curve comes from a different
+            # sample of rows than the equation's, so their levels need not match).
             forest, equation = _centred(forest), _centred(equation)
             scale = f"{scale[:28]} (centred)"
         out.append({"variable": var, "kind": f.kind, "grid": list(grid), "forest": forest,
@@ -83,19 +83,21 @@ def _scale(r) -> str:
 
 
 def _stored(r, var: str):
-    """A curve the discovery step kept, accepting the usual key names; None if unusable."""
-    s = (getattr(r.discovery, "shapes", None) or {}).get(var)
-    if not isinstance(s, dict):
+    """The numeric curve the discovery step recorded for ``var`` (its ``grid``, ``pd`` and ``scale``
+    fields, as the manifest writes them), or None when there is none the panel can draw.
+
+    Only a curve on the prediction's own scale (``scale == "value"``, regression) is drawn as is;
+    a classification curve is stored on the log-odds scale, while the panel compares
+    probabilities, so the report computes those itself.
+    """
+    s = r.discovery.shapes.get(var)
+    if s is None or s.get("kind") != "numeric" or s.get("scale") != "value":
         return None
-    grid = next((s[k] for k in ("grid", "x", "values_x") if k in s), None)
-    vals = next((s[k] for k in ("values", "pd", "partial_dependence", "average", "y") if k in s), None)
-    if grid is None or vals is None:
-        return None
-    vals = np.asarray(vals, dtype=float)
+    grid, vals = s["grid"], np.asarray(s["pd"], dtype=float)
     if vals.ndim == 1:
         vals = vals[None, :]
     if vals.shape[-1] != len(grid) or vals.shape[0] != len(_outcomes(r)):
-        return None
+        return None  # too few distinct values: discovery recorded no curve
     return list(grid), vals.tolist()
 
 

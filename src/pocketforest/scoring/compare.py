@@ -27,6 +27,7 @@ from ..evaluate import fidelity, loss_with_interval, metrics
 from ..intake.coerce import coerce_for_scoring
 from ..intake.reading import read_table
 from ..intake.values import category_text
+from ..summary import aligned_columns
 from .bundle_io import read_manifest
 from .runtime import MODELS, Scorer, envelope_count
 from .score import features_of
@@ -57,6 +58,8 @@ class Comparison:
     training: dict
     thresholds: dict = field(default_factory=dict)
     breaches: list[str] = field(default_factory=list)
+    #: rows left out because a model gave no prediction (the equation has no finite value there)
+    rows_without_prediction: int = 0
 
     @property
     def exit_code(self) -> int:
@@ -65,7 +68,8 @@ class Comparison:
     def to_dict(self) -> dict:
         return _clean({"bundle": self.bundle, "data": self.data, "task": self.task, "target": self.target,
                        "rows": self.rows, "rows_without_target": self.rows_without_target,
-                       "rows_unknown_class": self.rows_unknown_class, "evaluation": self.evaluation,
+                       "rows_unknown_class": self.rows_unknown_class,
+                       "rows_without_prediction": self.rows_without_prediction, "evaluation": self.evaluation,
                        "fidelity": self.fidelity, "loss": self.loss, "drift": self.drift,
                        "at_distill": self.training, "thresholds": self.thresholds,
                        "breaches": self.breaches, "exit_code": self.exit_code})
@@ -104,6 +108,14 @@ def compare(bundle: str | os.PathLike, data: str | os.PathLike, *, max_loss: flo
     for model in MODELS:
         out = Scorer(bundle, model, manifest).run(scored)
         preds[model] = out["prediction"] if task == "regression" else out["probabilities"]
+    # every model is judged on the same rows: those where each gave a prediction
+    scored_ok = np.all([np.isfinite(p.reshape(len(y), -1)).all(axis=1) for p in preds.values()], axis=0)
+    without_prediction = int((~scored_ok).sum())
+    if scored_ok.sum() < 2:
+        raise InputError(f"{data}: fewer than 2 rows where every model gives a prediction (the equation has no "
+                         "finite value on the others, see the README): compare needs more rows inside its range")
+    y = y[scored_ok]
+    preds = {m: p[scored_ok] for m, p in preds.items()}
     evaluation = {"on": "new rows", "n": int(len(y)),
                   **{m: metrics(y, preds[m], task, classes) for m in MODELS}}
     fid = {m: fidelity(preds["forest"], preds[m], task) for m in ("tree", "equation")}
@@ -115,7 +127,8 @@ def compare(bundle: str | os.PathLike, data: str | os.PathLike, *, max_loss: flo
                 "loss": manifest.get("loss")}
     result = Comparison(str(bundle), str(data), task, target, int(len(y)), without, int(unknown.sum()),
                         evaluation, fid, loss, drift, training,
-                        thresholds={"max_loss": max_loss, "max_outside": max_outside})
+                        thresholds={"max_loss": max_loss, "max_outside": max_outside},
+                        rows_without_prediction=without_prediction)
     result.breaches = _breaches(result, max_loss, max_outside)
     return result
 
@@ -227,12 +240,14 @@ def comparison_text(d: dict) -> str:
         lines.append(f"  {d['rows_without_target']} rows without '{d['target']}' left out")
     if d["rows_unknown_class"]:
         lines.append(f"  {d['rows_unknown_class']} rows with a class the bundle never saw left out of the metrics")
-    lines += ["", "model      " + "".join(f"{n:>12}" for n in names) + "   (at distill, test rows)"]
+    if d.get("rows_without_prediction"):
+        lines.append(f"  {d['rows_without_prediction']} rows where the equation has no finite value left out of the metrics")
+    table = [["model"] + names + ["(at distill, test rows)"]]
     for m in MODELS:
         old = then.get(m) or {}
-        lines.append(f"{m:<11}" + "".join(f"{_f(ev[m][n]):>12}" for n in names)
-                     + "   (" + ", ".join(f"{n} {_f(old.get(n))}" for n in names) + ")")
-    lines.append("")
+        table.append([m] + [_f(ev[m][n]) for n in names]
+                     + ["(" + ", ".join(f"{n} {_f(old.get(n))}" for n in names) + ")"])
+    lines += [""] + aligned_columns(table, [False] + [True] * len(names) + [False]) + [""]
     for m in ("tree", "equation"):
         lo, fid = d["loss"][m], d["fidelity"][m]
         old = (d["at_distill"].get("loss") or {}).get(m) or {}

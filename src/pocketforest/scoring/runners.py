@@ -22,6 +22,7 @@ import numpy as np
 import pandas as pd
 
 from ..expr import sql_ident
+from ..intake.values import MISSING_TOKENS
 
 NODE_DIR_ENV = "POCKETFOREST_NODE_DIR"
 ORT_NODE_PACKAGE = "onnxruntime-node@1"
@@ -62,11 +63,26 @@ def json_rows(frame: pd.DataFrame, features: list[dict]) -> list[dict]:
     return [{name: cols[name][i] for name in cols} for i in range(len(frame))]
 
 
+def text_rows(text: pd.DataFrame, typed: pd.DataFrame, features: list[dict], *,
+              numbers_as_text: bool = True) -> list[dict]:
+    """Rows as :func:`json_rows` gives them, except that a cell written as a missing-value text
+    (``NA``, `` null ``, ...) is passed as that text, for the form to recognise (numeric cells
+    only when ``numbers_as_text``)."""
+    rows = json_rows(typed, features)
+    for f in features:
+        if f["kind"] == "numeric" and not numbers_as_text:
+            continue
+        for row, cell in zip(rows, text[f["name"]].tolist()):
+            if cell and cell.strip() in MISSING_TOKENS:
+                row[f["name"]] = cell
+    return rows
+
+
 def collect(results: list, task: str, classes: list[str] | None) -> dict[str, np.ndarray]:
     """predict(row) results (numbers or {label, probabilities}) as the arrays verify compares."""
     if task == "regression":
         return {"prediction": np.array([np.nan if v is None else float(v) for v in results])}
-    labels = np.array([str(r["label"]) for r in results])
+    labels = np.array(["" if r["label"] is None else str(r["label"]) for r in results])
     probs = np.array([[np.nan if r["probabilities"].get(c) is None else float(r["probabilities"][c])
                        for c in classes] for r in results])
     return {"label": labels, "probabilities": probs}
@@ -80,7 +96,8 @@ def _run(cmd: list[str], payload: str, env: dict | None = None) -> str:
         except subprocess.TimeoutExpired:
             raise RunnerFailed(f"{Path(cmd[0]).name} did not finish within {TIMEOUT} s") from None
     if proc.returncode != 0:
-        tail = (proc.stderr or "").strip().splitlines()[-3:]
+        # the message, not Node.js's stack frames ("    at ...") that follow it
+        tail = [ln for ln in (proc.stderr or "").strip().splitlines() if not ln.lstrip().startswith("at ")][-3:]
         raise RunnerFailed(f"{Path(cmd[0]).name} exited with {proc.returncode}: {' | '.join(tail)}")
     return proc.stdout
 
@@ -189,13 +206,16 @@ def _query(con, create: str, insert: str, values, statement: str, errors, label:
     return result, intact
 
 
-def run_sql(engine: str, statement: str, frame: pd.DataFrame, features: list[dict]) -> pd.DataFrame:
+def run_sql(engine: str, statement: str, frame: pd.DataFrame, features: list[dict],
+            rows: list[dict] | None = None) -> pd.DataFrame:
     """Run the export's SELECT on a table ``input_rows`` holding ``frame``'s feature columns
     (numbers as DOUBLE, categories as text, missing as NULL) plus a row number; the result keeps
-    the input order and the table is checked to be intact afterwards."""
+    the input order and the table is checked to be intact afterwards. ``rows`` (optional) are the
+    cells to insert instead of :func:`json_rows` of ``frame`` (SQLite keeps a text in a DOUBLE
+    column as text)."""
     rid = _row_id(features)
     cols = [(rid, "INTEGER")] + [(f["name"], "DOUBLE" if f["kind"] == "numeric" else "VARCHAR") for f in features]
-    rows = json_rows(frame, features)
+    rows = json_rows(frame, features) if rows is None else rows
     values = [tuple([i] + [r[f["name"]] for f in features]) for i, r in enumerate(rows)]
     create = "CREATE TABLE input_rows (" + ", ".join(f"{sql_ident(n)} {t}" for n, t in cols) + ")"
     insert = "INSERT INTO input_rows VALUES (" + ", ".join("?" for _ in cols) + ")"
@@ -233,4 +253,4 @@ def sql_predictions(result: pd.DataFrame, task: str, classes: list[str] | None) 
     if task == "regression":
         return {"prediction": pd.to_numeric(tail.iloc[:, 0]).to_numpy(dtype=float)}
     probs = np.column_stack([pd.to_numeric(tail.iloc[:, k + 1]).to_numpy(dtype=float) for k in range(len(classes))])
-    return {"label": tail.iloc[:, 0].astype(str).to_numpy(), "probabilities": probs}
+    return {"label": tail.iloc[:, 0].fillna("").astype(str).to_numpy(), "probabilities": probs}

@@ -30,7 +30,6 @@ from .explain import Explainer, equation_columns
 from .runtime import Scorer, envelope_count
 
 CHUNK_ROWS = 20_000  # a 100,000-row chunk of text cells peaked near 250 MB; 20,000 near 45 MB
-OUTPUTS = ("prediction", "label", "inputs_outside_training")
 
 
 def features_of(manifest: dict) -> list[Feature]:
@@ -129,7 +128,7 @@ def score_file(bundle: str, data: str, model: str, out: str | None, keep: list[s
     manifest = read_manifest(bundle)
     scorer = Scorer(bundle, model, manifest)
     features = features_of(manifest)
-    keep = list(dict.fromkeys(keep or []))
+    keep = list(dict.fromkeys(k.strip() for k in keep or []))   # header names are read stripped
     _check_out(out)
     why, why_names = _why(bundle, manifest, model) if explain else (None, [])
     names = ["prediction"] if manifest["task"] == "regression" else ["label"] + [f"prob_{c}" for c in manifest["classes"]]
@@ -137,7 +136,7 @@ def score_file(bundle: str, data: str, model: str, out: str | None, keep: list[s
     if clash:
         raise InputError(f"--keep column '{clash[0]}' has the name of an output column: rename it in {data}")
     stray = _Stray(features)
-    tmp_path, sink, total = None, None, 0
+    tmp_path, sink, total, chunks = None, None, 0, None
     try:
         if out is not None:
             fd, tmp_path = tempfile.mkstemp(prefix=".pf-score-", suffix=Path(out).suffix.lower(),
@@ -146,7 +145,8 @@ def score_file(bundle: str, data: str, model: str, out: str | None, keep: list[s
             if tmp_path.endswith(".parquet"):
                 sink = _ParquetSink(tmp_path)
         wanted = [f.name for f in features] + keep
-        for first_row, chunk in iter_table(data, chunksize=chunk_rows, columns=wanted):
+        chunks = iter_table(data, chunksize=chunk_rows, columns=wanted)
+        for first_row, chunk in chunks:
             if first_row == 0:
                 absent = [k for k in keep if k not in chunk.columns]
                 if absent:
@@ -175,6 +175,8 @@ def score_file(bundle: str, data: str, model: str, out: str | None, keep: list[s
             os.replace(tmp_path, out)
             tmp_path = None
     finally:
+        if chunks is not None:
+            chunks.close()   # the input file is closed now, not when the generator is collected
         if sink is not None:
             sink.close()
         if tmp_path is not None and os.path.exists(tmp_path):

@@ -14,7 +14,13 @@ libraries wrote there, and passes when the largest difference is within the form
   equation.txt), GNU PSPP (equation.sps) and Chromium (calculator.html) compute in double
   precision too and are held to the same 1e-7 (:mod:`pocketforest.scoring.engine_checks`);
 * labels: identical, except on rows where the reference's top two probabilities are closer than
-  the form's probability tolerance.
+  the form's probability tolerance;
+* a missing prediction (an empty field: the equation has no finite value there) must be missing
+  in the form too.
+
+The reference's closing rows spell their inputs as intake's missing-value texts (``NA``,
+`` null ``, ...); the code forms receive those cells as text, so a form whose list of such texts
+has drifted from intake's fails here.
 
 The forms run where they will live (:mod:`pocketforest.scoring.runners`): nothing from the bundle is
 imported or executed in this process. A check whose runtime is absent (no Node.js, or npm could
@@ -33,8 +39,10 @@ import pandas as pd
 
 from ..errors import BundleError, InputError
 from . import runners
+from ..intake.coerce import coerce_for_scoring
 from .bundle_io import bundle_file, read_manifest, sha256
 from .runtime import MODELS, Scorer
+from .score import features_of
 
 VALUE_RTOL = 1e-4
 PROB_ATOL = 1e-4
@@ -57,22 +65,33 @@ class Check:
         return f"{mark}  {self.form}{diff}{('  ' + self.detail) if self.detail else ''}"
 
 
-def read_reference(bundle: str | Path, manifest: dict) -> pd.DataFrame:
+def read_reference_text(bundle: str | Path, manifest: dict) -> pd.DataFrame:
+    """reference.csv exactly as written: every cell its text."""
     path = bundle_file(bundle, manifest, "reference.csv")
-    types = {f["name"]: (str if f["kind"] == "categorical" else float) for f in manifest["features"]}
-    frame = pd.read_csv(path, dtype={k: v for k, v in types.items()}, keep_default_na=False, na_values=[""])
-    for f in manifest["features"]:
-        if f["kind"] == "categorical":
-            frame[f["name"]] = frame[f["name"]].fillna("").astype(str)
-    return frame
+    return pd.read_csv(path, dtype=str, keep_default_na=False, na_filter=False)
+
+
+def read_reference(bundle: str | Path, manifest: dict, text: pd.DataFrame | None = None) -> pd.DataFrame:
+    """The reference rows typed as ``score`` types new rows: inputs through intake's coercion (a
+    missing-value text such as ``NA`` is a missing value), predictions as numbers (an empty field
+    is a missing prediction), labels as text ("" when missing)."""
+    text = read_reference_text(bundle, manifest) if text is None else text
+    names = [f["name"] for f in manifest["features"]]
+    typed = coerce_for_scoring(text, features_of(manifest), source="reference.csv")
+    for c in text.columns:
+        if c not in names:
+            typed[c] = text[c] if c.startswith("label_") else pd.to_numeric(text[c].replace("", np.nan))
+    return typed
 
 
 def _max_diff(have: np.ndarray, want: np.ndarray) -> float:
-    """Largest |difference|; a NaN or a wrong shape counts as an infinite difference."""
+    """Largest |difference|; a value missing (NaN) on one side only, or a wrong shape, counts as
+    an infinite difference. Missing on both sides agrees: the documented missing prediction."""
     have, want = np.asarray(have, dtype=float), np.asarray(want, dtype=float)
     if have.shape != want.shape:
         return float("inf")
-    d = np.abs(have - want)
+    both = np.isnan(have) & np.isnan(want)
+    d = np.abs(have - want)[~both]
     return float("inf") if np.isnan(d).any() else float(np.max(d, initial=0.0))
 
 
@@ -83,7 +102,7 @@ def compare_predictions(form: str, manifest: dict, ref: pd.DataFrame, model: str
     if manifest["task"] == "regression":
         want = ref[f"pred_{model}"].to_numpy(dtype=float)
         have = np.asarray(got["prediction"], dtype=float).reshape(-1)
-        tol = rtol * max(1.0, float(np.max(np.abs(want))))
+        tol = rtol * max(1.0, float(np.max(np.abs(want), initial=0.0, where=~np.isnan(want))))
         diff = _max_diff(have, want)
         return Check(form, bool(diff <= tol), diff, tol)
     classes = manifest["classes"]
@@ -91,7 +110,7 @@ def compare_predictions(form: str, manifest: dict, ref: pd.DataFrame, model: str
     have_p = np.asarray(got["probabilities"], dtype=float)
     diff = _max_diff(have_p, want_p)
     top2 = np.sort(want_p, axis=1)[:, -2:]
-    clear = (top2[:, 1] - top2[:, 0]) > prob_atol
+    clear = ((top2[:, 1] - top2[:, 0]) > prob_atol) | np.isnan(want_p).any(axis=1)
     want_l = ref[f"label_{model}"].astype(str).to_numpy()
     have_l = np.asarray(got["label"]).astype(str).reshape(-1)
     bad = int(np.sum((want_l != have_l) & clear)) if have_l.shape == want_l.shape else len(want_l)
@@ -153,16 +172,21 @@ def _code_check(form: str, bundle, manifest, ref, model: str, file: str, run) ->
     return compare_predictions(form, manifest, ref, model, got, rtol=CODE_RTOL, prob_atol=CODE_PROB_ATOL)
 
 
-def _code_checks(bundle, manifest, ref, skip_node: bool = False) -> list[Check]:
+def _code_checks(bundle, manifest, ref, text, skip_node: bool = False) -> list[Check]:
+    """The code forms get the reference's missing-value texts as text, where their inputs can
+    hold text: every cell for Python and JavaScript and in SQLite's dynamically typed table,
+    the category cells in DuckDB's (its DOUBLE columns take NULL)."""
     task, classes, features = manifest["task"], manifest.get("classes"), manifest["features"]
-    rows = runners.json_rows(ref, features)
+    rows = runners.text_rows(text, ref, features)
+    sql_rows = {"sqlite": rows, "duckdb": runners.text_rows(text, ref, features, numbers_as_text=False)}
     out = []
     for model in ("equation", "tree"):
         sql = f"{model}.sql"
         for engine, label in (("sqlite", "SQLite"), ("duckdb", "DuckDB")):
             out.append(_code_check(f"{sql} ({label})", bundle, manifest, ref, model, sql,
                                    lambda p, e=engine: runners.sql_predictions(
-                                       runners.run_sql(e, p.read_text(encoding="utf-8"), ref, features), task, classes)))
+                                       runners.run_sql(e, p.read_text(encoding="utf-8"), ref, features,
+                                                       rows=sql_rows[e]), task, classes)))
     for model in ("equation", "tree"):
         out.append(_code_check(f"{model}.py (Python, separate isolated interpreter)", bundle, manifest, ref, model,
                                f"{model}.py",
@@ -194,18 +218,20 @@ def verify_bundle(bundle: str | Path, *, quiet: bool = False, skip: tuple[str, .
     checks = [_checksums(bundle, manifest)]
     if not checks[0].ok:
         return checks
-    ref = read_reference(bundle, manifest)
+    text = read_reference_text(bundle, manifest)
+    ref = read_reference(bundle, manifest, text)
     checks += _onnx_checks(bundle, manifest, ref)
     if "node" in skip:
         checks += [Check(f"{m}.onnx (onnxruntime-node, Node.js)", True, None, None, "skipped: --skip node",
                          skipped=True) for m in MODELS]
     else:
         checks += _node_onnx_checks(bundle, manifest, ref, quiet=quiet)
-    checks += _code_checks(bundle, manifest, ref, skip_node="node" in skip)
+    checks += _code_checks(bundle, manifest, ref, text, skip_node="node" in skip)
     checks += collaborator_checks(bundle, manifest, ref, skip)
     for extra in EXTRA_CHECKS:
         checks += extra(bundle, manifest, ref)
     return checks
 
 
-__all__ = ["Check", "verify_bundle", "compare_predictions", "read_reference", "BundleError"]
+__all__ = ["Check", "verify_bundle", "compare_predictions", "read_reference", "read_reference_text",
+           "BundleError"]
