@@ -78,10 +78,16 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("score", help="predict new rows with a bundle's ONNX model")
     p.add_argument("bundle")
-    p.add_argument("data")
+    p.add_argument("data", help="a .csv, .tsv or .parquet file, a folder of them, or a quoted pattern such as 'data/*.parquet'")
     p.add_argument("--model", choices=["forest", "tree", "equation"], required=True)
-    p.add_argument("--out", help=".csv or .parquet file (default: CSV on stdout)")
+    p.add_argument("--out", help=".csv or .parquet file (default: CSV on stdout); with --engine dask a folder")
     p.add_argument("--keep", nargs="+", default=[], metavar="COL", help="input columns to copy into the output")
+    p.add_argument("--engine", choices=["single", "dask"], default="single",
+                   help="single: this process streams the rows (default); dask: a Dask cluster scores the files "
+                        "piece by piece and writes one Parquet file per piece into the folder --out")
+    p.add_argument("--scheduler", metavar="ADDRESS",
+                   help="with --engine dask: the address of a running Dask scheduler (default: a local cluster, "
+                        "one worker process per core)")
     _common(p)
 
     p = sub.add_parser("verify", help="check a bundle's files and every exported form against its reference rows")
@@ -174,8 +180,15 @@ def _run(args: argparse.Namespace) -> int:
             raise InputError(f"demo data {DEMO_DATA} not found: run `python demo_data/make_demo.py` first")
         return _run_distill(str(DEMO_DATA), DEMO_TARGET, _demo_args(args))
     if args.command == "score":
-        from .scoring.score import score_file
-        n = score_file(args.bundle, args.data, args.model, args.out, args.keep, quiet=args.quiet)
+        if args.scheduler and args.engine != "dask":
+            raise InputError("--scheduler needs --engine dask")
+        if args.engine == "dask":
+            from .scoring.cluster import score_files
+            n = score_files(args.bundle, args.data, args.model, args.out, args.keep, scheduler=args.scheduler,
+                            quiet=args.quiet)
+        else:
+            from .scoring.score import score_file
+            n = score_file(args.bundle, args.data, args.model, args.out, args.keep, quiet=args.quiet)
         if args.out and not args.quiet:
             print(f"wrote {n} predictions to {args.out}", file=sys.stderr)
         return 0

@@ -24,6 +24,7 @@ import pandas as pd
 from ..errors import InputError
 from ..features import Feature
 from ..intake.coerce import coerce_for_scoring
+from ..intake.pieces import input_files
 from ..intake.reading import iter_table
 from .bundle_io import read_manifest
 from .runtime import Scorer, envelope_count
@@ -37,8 +38,12 @@ def features_of(manifest: dict) -> list[Feature]:
     return [Feature(**{k: f.get(k) for k in keys}) for f in manifest["features"]]
 
 
-class _Stray:
-    """Running tally of values outside the training envelope, for one warning per column."""
+class Stray:
+    """Running tally of values outside the training envelope, for one warning per column.
+
+    A cluster task returns its tally as :meth:`state` (plain data) and the client adds them up
+    with :meth:`merge`, in input order, so the warnings are those of single-machine `score`.
+    """
 
     def __init__(self, features: list[Feature]):
         self.features = features
@@ -64,6 +69,20 @@ class _Stray:
                 if n:
                     self.outside[f.name] = self.outside.get(f.name, 0) + n
 
+    def state(self) -> dict:
+        return {"unseen": dict(self.unseen), "examples": {k: list(v) for k, v in self.examples.items()},
+                "outside": dict(self.outside)}
+
+    def merge(self, state: dict) -> None:
+        for name, n in state["unseen"].items():
+            self.unseen[name] = self.unseen.get(name, 0) + n
+        for name, values in state["examples"].items():
+            ex = self.examples.setdefault(name, [])
+            ex.extend(v for v in values if v not in ex)
+            del ex[3:]
+        for name, n in state["outside"].items():
+            self.outside[name] = self.outside.get(name, 0) + n
+
     def warnings(self) -> list[str]:
         out = []
         for name, n in self.unseen.items():
@@ -85,7 +104,7 @@ def _check_out(out: str | None) -> None:
         raise InputError(f"--out {out}: folder {Path(out).parent} does not exist: create it first")
 
 
-class _ParquetSink:
+class ParquetSink:
     """Appends frames to one Parquet file with the schema fixed by the first chunk."""
 
     def __init__(self, path: str):
@@ -108,19 +127,62 @@ class _ParquetSink:
             self.writer = None
 
 
+def check_keep(manifest: dict, keep: list[str], data) -> None:
+    """A --keep column must not take the name of an output column."""
+    names = output_names(manifest)
+    clash = [k for k in keep if k in names + ["inputs_outside_training"]]
+    if clash:
+        raise InputError(f"--keep column '{clash[0]}' has the name of an output column: rename it in {data}")
+
+
+def output_names(manifest: dict) -> list[str]:
+    if manifest["task"] == "regression":
+        return ["prediction"]
+    return ["label"] + [f"prob_{c}" for c in manifest["classes"]]
+
+
+def score_chunk(scorer: Scorer, manifest: dict, chunk: pd.DataFrame, keep: list[str], *, source: str,
+                first_row: int = 0, stray: Stray | None = None) -> pd.DataFrame:
+    """One chunk of raw rows in, its output rows out (``keep`` columns, predictions,
+    ``inputs_outside_training``), with a fresh 0-based index.
+
+    THE per-partition function: single-machine `score`, the Dask engine and the Python API on a
+    Dask or Spark partition all call it, so their columns and values agree by construction.
+    """
+    typed = coerce_for_scoring(chunk, features_of(manifest), source=source, first_row=first_row)
+    pred = scorer.columns(typed)
+    pred["inputs_outside_training"] = envelope_count(typed, manifest["features"])
+    if stray is not None:
+        stray.add(typed)
+    return pd.concat([chunk[keep].reset_index(drop=True), pred.reset_index(drop=True)], axis=1)
+
+
+def score_frame(scorer: Scorer, manifest: dict, frame: pd.DataFrame, keep: list[str], *, source: str,
+                chunk_rows: int = CHUNK_ROWS) -> pd.DataFrame:
+    """:func:`score_chunk` over a whole in-memory partition, ``chunk_rows`` at a time (the typed
+    copies of a chunk, not the partition, bound the extra memory); the output keeps ``frame``'s
+    index and row order. Error line numbers count the partition's rows from 2, as if it were a file."""
+    parts = [score_chunk(scorer, manifest, frame.iloc[i:i + chunk_rows], keep, source=source, first_row=i)
+             for i in range(0, len(frame), chunk_rows)] or [score_chunk(scorer, manifest, frame, keep, source=source)]
+    out = pd.concat(parts, axis=0, ignore_index=True) if len(parts) > 1 else parts[0]
+    out.index = frame.index
+    return out
+
+
 def score_file(bundle: str, data: str, model: str, out: str | None, keep: list[str] | None = None,
                quiet: bool = False, chunk_rows: int = CHUNK_ROWS) -> int:
-    """Write predictions to ``out`` (CSV or Parquet by extension) or CSV on stdout; returns rows scored."""
+    """Write predictions to ``out`` (CSV or Parquet by extension) or CSV on stdout; returns rows scored.
+
+    ``data`` is a file, a folder of files or a glob pattern (:func:`pieces.input_files`); the
+    files are scored one after another into the one output, in order."""
     manifest = read_manifest(bundle)
     scorer = Scorer(bundle, model, manifest)
     features = features_of(manifest)
     keep = list(dict.fromkeys(keep or []))
     _check_out(out)
-    names = ["prediction"] if manifest["task"] == "regression" else ["label"] + [f"prob_{c}" for c in manifest["classes"]]
-    clash = [k for k in keep if k in names + ["inputs_outside_training"]]
-    if clash:
-        raise InputError(f"--keep column '{clash[0]}' has the name of an output column: rename it in {data}")
-    stray = _Stray(features)
+    check_keep(manifest, keep, data)
+    files = input_files(str(data))
+    stray = Stray(features)
     tmp_path, sink, total = None, None, 0
     try:
         if out is not None:
@@ -128,29 +190,28 @@ def score_file(bundle: str, data: str, model: str, out: str | None, keep: list[s
                                             dir=str(Path(out).resolve().parent))
             os.close(fd)
             if tmp_path.endswith(".parquet"):
-                sink = _ParquetSink(tmp_path)
+                sink = ParquetSink(tmp_path)
         wanted = [f.name for f in features] + keep
-        for first_row, chunk in iter_table(data, chunksize=chunk_rows, columns=wanted):
-            if first_row == 0:
-                absent = [k for k in keep if k not in chunk.columns]
-                if absent:
-                    raise InputError(f"{data}: --keep column(s) {', '.join(repr(k) for k in absent)} not found: "
-                                     "check the names (they are case-sensitive)")
-            typed = coerce_for_scoring(chunk, features, source=str(data), first_row=first_row)
-            pred = scorer.columns(typed)
-            pred["inputs_outside_training"] = envelope_count(typed, manifest["features"])
-            stray.add(typed)
-            frame = pd.concat([chunk[keep].reset_index(drop=True), pred.reset_index(drop=True)], axis=1)
-            if out is None:
-                frame.to_csv(sys.stdout, index=False, header=(first_row == 0), lineterminator="\n")
-            elif sink is not None:
-                sink.write(frame)
-            else:
-                frame.to_csv(tmp_path, index=False, header=(first_row == 0), mode="w" if first_row == 0 else "a",
-                             lineterminator="\n")
-            total += len(chunk)
-            if not quiet and total:
-                print(f"\rscored {total:,} rows", end="", file=sys.stderr, flush=True)
+        started = False
+        for path in files:
+            for first_row, chunk in iter_table(path, chunksize=chunk_rows, columns=wanted):
+                if first_row == 0:
+                    absent = [k for k in keep if k not in chunk.columns]
+                    if absent:
+                        raise InputError(f"{path}: --keep column(s) {', '.join(repr(k) for k in absent)} not found: "
+                                         "check the names (they are case-sensitive)")
+                frame = score_chunk(scorer, manifest, chunk, keep, source=str(path), first_row=first_row, stray=stray)
+                if out is None:
+                    frame.to_csv(sys.stdout, index=False, header=not started, lineterminator="\n")
+                elif sink is not None:
+                    sink.write(frame)
+                else:
+                    frame.to_csv(tmp_path, index=False, header=not started, mode="a" if started else "w",
+                                 lineterminator="\n")
+                started = True
+                total += len(chunk)
+                if not quiet and total:
+                    print(f"\rscored {total:,} rows", end="", file=sys.stderr, flush=True)
         if sink is not None:
             sink.close()
         if tmp_path is not None:
