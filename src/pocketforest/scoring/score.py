@@ -28,6 +28,7 @@ from ..intake.pieces import input_files
 from ..intake.reading import iter_table
 from .bundle_io import read_manifest
 from .runtime import Scorer, envelope_count
+from .threads import ordered_stream
 
 CHUNK_ROWS = 20_000  # a 100,000-row chunk of text cells peaked near 250 MB; 20,000 near 45 MB
 OUTPUTS = ("prediction", "label", "inputs_outside_training")
@@ -170,11 +171,12 @@ def score_frame(scorer: Scorer, manifest: dict, frame: pd.DataFrame, keep: list[
 
 
 def score_file(bundle: str, data: str, model: str, out: str | None, keep: list[str] | None = None,
-               quiet: bool = False, chunk_rows: int = CHUNK_ROWS) -> int:
+               quiet: bool = False, chunk_rows: int = CHUNK_ROWS, threads: int | None = -1) -> int:
     """Write predictions to ``out`` (CSV or Parquet by extension) or CSV on stdout; returns rows scored.
 
     ``data`` is a file, a folder of files or a glob pattern (:func:`pieces.input_files`); the
-    files are scored one after another into the one output, in order."""
+    files are scored one after another into the one output, in order. ``threads`` chunks are
+    scored at once (-1: one per core), each with a single-threaded session call."""
     manifest = read_manifest(bundle)
     scorer = Scorer(bundle, model, manifest)
     features = features_of(manifest)
@@ -192,26 +194,37 @@ def score_file(bundle: str, data: str, model: str, out: str | None, keep: list[s
             if tmp_path.endswith(".parquet"):
                 sink = ParquetSink(tmp_path)
         wanted = [f.name for f in features] + keep
+
+        def chunks():
+            for path in files:
+                for first_row, chunk in iter_table(path, chunksize=chunk_rows, columns=wanted):
+                    if first_row == 0:
+                        absent = [k for k in keep if k not in chunk.columns]
+                        if absent:
+                            raise InputError(f"{path}: --keep column(s) {', '.join(repr(k) for k in absent)} "
+                                             "not found: check the names (they are case-sensitive)")
+                    yield path, first_row, chunk
+
+        def work(path, first_row, chunk):
+            own = Stray(features)
+            return score_chunk(scorer, manifest, chunk, keep, source=str(path), first_row=first_row, stray=own), own
+
         started = False
-        for path in files:
-            for first_row, chunk in iter_table(path, chunksize=chunk_rows, columns=wanted):
-                if first_row == 0:
-                    absent = [k for k in keep if k not in chunk.columns]
-                    if absent:
-                        raise InputError(f"{path}: --keep column(s) {', '.join(repr(k) for k in absent)} not found: "
-                                         "check the names (they are case-sensitive)")
-                frame = score_chunk(scorer, manifest, chunk, keep, source=str(path), first_row=first_row, stray=stray)
-                if out is None:
-                    frame.to_csv(sys.stdout, index=False, header=not started, lineterminator="\n")
-                elif sink is not None:
-                    sink.write(frame)
-                else:
-                    frame.to_csv(tmp_path, index=False, header=not started, mode="a" if started else "w",
-                                 lineterminator="\n")
-                started = True
-                total += len(chunk)
-                if not quiet and total:
-                    print(f"\rscored {total:,} rows", end="", file=sys.stderr, flush=True)
+        # chunks are typed and predicted on every core, one single-threaded session call each,
+        # and written in input order (see runtime.session_options for why one thread per call)
+        for frame, own in ordered_stream(work, chunks(), threads):
+            stray.merge(own.state())
+            if out is None:
+                frame.to_csv(sys.stdout, index=False, header=not started, lineterminator="\n")
+            elif sink is not None:
+                sink.write(frame)
+            else:
+                frame.to_csv(tmp_path, index=False, header=not started, mode="a" if started else "w",
+                             lineterminator="\n")
+            started = True
+            total += len(frame)
+            if not quiet and total:
+                print(f"\rscored {total:,} rows", end="", file=sys.stderr, flush=True)
         if sink is not None:
             sink.close()
         if tmp_path is not None:
