@@ -109,6 +109,8 @@ def _manifest(r, created: str, nodes) -> dict:
     }
     if classes is not None:
         m["classes"] = classes
+    if getattr(r, "sample", None):
+        m["sample"] = r.sample
     return _clean(m)
 
 

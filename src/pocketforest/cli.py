@@ -54,6 +54,10 @@ def _distill_options(p: argparse.ArgumentParser) -> None:
                    help="always put these columns in the equation as main effects")
     p.add_argument("--drop-var", nargs="+", default=[], metavar="COL",
                    help="never use these columns in the equation (the forest still sees them)")
+    p.add_argument("--sample", type=int, metavar="N",
+                   help="distil a seeded sample of N rows, stratified on the target with every category level "
+                        "kept, read through DuckDB from a file, a folder or a quoted pattern too large for memory; "
+                        "then check the bundle on as many rows left out")
     p.add_argument("--force", action="store_true", help="replace an existing bundle")
     p.add_argument("--json", action="store_true", help="print the summary as JSON")
 
@@ -124,6 +128,8 @@ def _check_distill_options(args: argparse.Namespace) -> None:
         raise InputError(f"--max-leaves {args.max_leaves}: give 0 (no cap) or at least 2")
     if args.tree_depth is not None and args.tree_depth < 1:
         raise InputError(f"--tree-depth {args.tree_depth}: the surrogate tree needs a depth of at least 1")
+    if getattr(args, "sample", None) is not None and args.sample < 1:
+        raise InputError(f"--sample {args.sample}: give the number of rows to sample (at least 1)")
     if not 0.0 < args.fidelity_target <= 1.0:
         raise InputError(f"--fidelity-target {args.fidelity_target}: give a share between 0 and 1, such as 0.9")
 
@@ -141,7 +147,16 @@ def _run_distill(data: str, target: str, args: argparse.Namespace) -> int:
     out = args.out or _default_out(data)
     if Path(out).exists() and not args.force:
         raise InputError(f"{out} already exists: choose another --out or pass --force to replace it")
-    table = load(data, target, task=args.task, categorical=args.categorical, ignore=args.ignore)
+    drawn = None
+    if args.sample is not None:
+        from .intake import prepare
+        from .sample import draw
+        drawn = draw(data, target, args.sample, args.seed, task=args.task, categorical=args.categorical,
+                     ignore=args.ignore)
+        table = prepare(drawn.sample, target, task=args.task, categorical=args.categorical, ignore=args.ignore,
+                        source=data)
+    else:
+        table = load(data, target, task=args.task, categorical=args.categorical, ignore=args.ignore)
     from .discovery import check_requests
     check_requests({f.name: f.kind for f in table.features}, args.keep_var, args.drop_var, args.max_terms)
     from .pipeline import Settings, distill
@@ -157,6 +172,11 @@ def _run_distill(data: str, target: str, args: argparse.Namespace) -> int:
                         synthetic_rows=args.synthetic_rows, cap_terms=not args.no_term_cap,
                         max_terms=args.max_terms, keep_vars=tuple(args.keep_var), drop_vars=tuple(args.drop_var))
     result = distill(table, settings)
+    if drawn is not None:
+        from .sample import self_check
+        if not args.quiet:
+            print(f"checking on {len(drawn.check):,} rows the sample left out", file=sys.stderr)
+        result.sample = {**drawn.design, "self_check": self_check(result, drawn.check, data)}
     path = result.write(out, force=args.force)
     if args.json:
         print(json.dumps(summary_dict(result, path), indent=2))

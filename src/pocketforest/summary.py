@@ -31,7 +31,8 @@ def summary_dict(r, path: str) -> dict:
             "formula": r.equation.formula, "tree": {"depth": r.tree.depth, "leaves": r.tree.leaves},
             "importance": [i.to_dict() for i in r.importance], "warnings": r.warnings,
             "report": report, "open_report": open_command(report),
-            "verify": f"pocketforest verify {shlex.quote(path)}"}
+            "verify": f"pocketforest verify {shlex.quote(path)}",
+            **({"sample": r.sample} if getattr(r, "sample", None) else {})}
 
 
 def _f(v, fmt: str) -> str:
@@ -62,11 +63,24 @@ def format_summary(d: dict) -> str:
         row = f"{m:<16}" + "".join(f"{_f(ev[m][n], '.4f'):>{width}}" for n in names)
         lines.append((row + f"    {fid[m]:<{fid_w}}    {loss[m]:<{loss_w}}").rstrip())
     lines += ["", f"equation: {d['formula']}", f"tree:     depth {d['tree']['depth']}, {d['tree']['leaves']} leaves"]
+    if d.get("sample"):
+        lines.append(sample_line(d["sample"]))
     if d.get("warnings"):
         n = len(d["warnings"])
         lines.append(f"notes:    {n} (data and fitting notes; all in the report's first section)")
     lines += ["", f"bundle:   {d['bundle']}", f"report:   {d['open_report']}", f"check:    {d['verify']}"]
     return "\n".join(lines)
+
+
+def sample_line(sm: dict) -> str:
+    """`distill --sample`: how many rows of how many, and the check on left-out rows."""
+    text = f"sample:   {sm['sample_rows']:,} of {sm['rows_with_target']:,} rows with a target"
+    chk = sm.get("self_check") or {}
+    if chk.get("loss"):
+        parts = [f"{m} loss {_f(lo['value'], '+.4f')} ({_f(lo['ci_low'], '+.4f')} to {_f(lo['ci_high'], '+.4f')})"
+                 for m, lo in chk["loss"].items()]
+        text += f"; on {chk['evaluation']['n']:,} rows left out: " + ", ".join(parts)
+    return text
 
 
 def summary_text(r, path: str) -> str:
