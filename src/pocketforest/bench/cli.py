@@ -8,7 +8,7 @@ import tempfile
 from dataclasses import asdict
 from pathlib import Path
 
-from . import honest, speed
+from . import cluster, honest, speed
 from .common import machine
 
 #: Every section as (name, flag, module, help). flag None: always runs. A new section is a new
@@ -17,9 +17,10 @@ from .common import machine
 SECTIONS = [
     ("speed", None, speed, "distill, scoring, memory and size figures"),
     ("honest", None, honest, "null rejection and loss-interval coverage"),
+    ("cluster", "--cluster", cluster, "score on a local Dask cluster and distill --sample, 10,000,000 rows"),
 ]
 #: Child-process functions by name, for ``--child`` (each section's own).
-CHILDREN = {**speed.CHILDREN}
+CHILDREN = {**speed.CHILDREN, **cluster.CHILDREN}
 
 
 def run(quick: bool = False, work: str | None = None, say=print, only: set[str] | None = None) -> dict:
