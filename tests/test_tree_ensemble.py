@@ -12,7 +12,7 @@ from pocketforest.design import make_preprocessor, model_frame
 from pocketforest.export import onnx_models
 from pocketforest.export.tree_ensemble import tree_ensemble_node, upgrade
 from pocketforest.intake import prepare
-from pocketforest.runtime import feeds, make_session
+from pocketforest.scoring.runtime import feeds, make_session
 from pocketforest.thresholds import snap_tree_thresholds
 
 from conftest import synthetic_table

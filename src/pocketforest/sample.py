@@ -32,8 +32,9 @@ import numpy as np
 import pandas as pd
 
 from .errors import InputError
-from .intake import MAX_CATEGORIES, MISSING_TOKENS, _csv_header
-from .pieces import input_files
+from .intake import MAX_CATEGORIES, MISSING_TOKENS
+from .intake.pieces import input_files
+from .intake.reading import _csv_header
 
 #: each level gets at least this many sample rows (or all its rows when it has fewer)
 LEVEL_FLOOR = 10
@@ -271,9 +272,9 @@ def self_check(result, check: pd.DataFrame, source: str) -> dict:
     Predictions are the fitted models' (the reference rows prove the ONNX models reproduce them);
     the rows are typed as `compare` types new rows.
     """
-    from .compare import judge, labels
     from .intake import coerce_for_scoring
-    from .runtime import envelope_count
+    from .scoring.compare import judge, labels
+    from .scoring.runtime import envelope_count
 
     table, s = result.table, result.settings
     out: dict = {"rows": int(len(check)), "on": "check rows: a seeded random sample of the rows the sample left out"}

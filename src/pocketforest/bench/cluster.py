@@ -19,7 +19,7 @@ from pathlib import Path
 from .common import Figure, Section, judge, make_data, maxrss_mb, run_child
 
 FULL = {"rows": 10_000_000, "files": 20, "sample": 200_000, "fit_rows": 50_000, "fit_trees": 150}
-QUICK = {"rows": 40_000, "files": 4, "sample": 2_000, "fit_rows": 2_000, "fit_trees": 20}
+QUICK = {"rows": 20_000, "files": 2, "sample": 1_000, "fit_rows": 1_000, "fit_trees": 10}
 
 
 def write_folder(folder: Path, rows: int, files: int, say) -> None:
@@ -124,7 +124,7 @@ def run(quick: bool, root: Path, say) -> Section:
     bundle = root / "cluster-bundle"
     say(f"distill --sample {size['sample']:,} on the {size['rows']:,}-row folder")
     ds = run_child("distill_sample", {"data": str(folder), "bundle": str(bundle), "sample": size["sample"],
-                                      "trees": 20 if quick else None})
+                                      "trees": 10 if quick else None})
     say("score: one process, streaming")
     single = run_child("score", {"bundle": str(bundle), "data": str(folder), "out": str(root / "single.parquet")})
     say("score --engine dask: a local cluster sized to this machine")

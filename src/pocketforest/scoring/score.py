@@ -28,7 +28,7 @@ from ..intake.pieces import input_files
 from ..intake.reading import iter_table
 from .bundle_io import read_manifest
 from .runtime import Scorer, envelope_count
-from .threads import ordered_stream
+from ..threads import ordered_stream
 
 CHUNK_ROWS = 20_000  # a 100,000-row chunk of text cells peaked near 250 MB; 20,000 near 45 MB
 OUTPUTS = ("prediction", "label", "inputs_outside_training")

@@ -17,9 +17,10 @@ import pytest
 
 pytest.importorskip("distributed")
 
-from pocketforest.dask import _score_partition, check_bundle, loads, local_cluster, score, score_files  # noqa: E402
+from pocketforest.dask import check_bundle, local_cluster, score, score_files  # noqa: E402
 from pocketforest.errors import BundleError, InputError  # noqa: E402
-from pocketforest.score import score_file  # noqa: E402
+from pocketforest.scoring.cluster import _score_partition, loads  # noqa: E402
+from pocketforest.scoring.score import score_file  # noqa: E402
 
 from conftest import run_cli, synthetic_table  # noqa: E402
 
