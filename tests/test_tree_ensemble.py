@@ -81,3 +81,19 @@ def test_a_tree_that_is_one_leaf_and_unsupported_nodes(fitted):
                             nodes_values=[0.0], nodes_truenodeids=[0], nodes_falsenodeids=[0], target_treeids=[0],
                             target_nodeids=[0], target_ids=[0], target_weights=[1.0])
     assert tree_ensemble_node(base) is None  # a base value has no place in TreeEnsemble: left as it is
+
+
+def test_one_thread_sessions_give_the_same_numbers_at_any_batch_size(fitted):
+    """Why scoring sessions run one onnxruntime thread per call (scoring/runtime.py): with 90 trees
+    (over the 80 from which onnxruntime 1.32's kernel may split trees between threads), a row's
+    prediction must not depend on which rows share its batch, so every chunking of `score`, and
+    every Dask worker, gives the same bits."""
+    table, pipe = fitted
+    model = onnx_models.convert_pipeline(pipe, table.features, "regression", "forest", {"tool_version": "t"})
+    session = make_session(model.SerializeToString(), threads=1)
+    rows = synthetic_table(n=300, seed=98)
+    fd = feeds(rows, [f.to_dict() for f in table.features])
+    whole = session.run(None, fd)[0]
+    for size in (7, 50, 51, 120):
+        parts = [session.run(None, {k: v[i:i + size] for k, v in fd.items()})[0] for i in range(0, 300, size)]
+        np.testing.assert_array_equal(np.concatenate(parts), whole)
