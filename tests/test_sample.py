@@ -100,4 +100,10 @@ def test_bad_sample_requests_fail_with_one_line(folder, tmp_path):
         draw(str(folder / "parts"), "nope", 100, seed=0)
     with pytest.raises(InputError, match="no file matches"):
         draw(str(folder / "parts" / "*.csv"), "y", 100, seed=0)
+    # a row with too many fields: DuckDB finds it; the user gets one line, not a traceback
+    ragged = tmp_path / "ragged.csv"
+    ragged.write_text("a,b,y\n" + "".join(f"{i},{i},{i}\n" for i in range(60)) + "1,2,3,4\n")
+    r = run_cli("distill", str(ragged), "--target", "y", "--sample", "10", "--out", str(tmp_path / "b"))
+    assert r.returncode == 2 and r.stderr.startswith("error:") and "Line: 62" in r.stderr
+    assert len(r.stderr.strip().splitlines()) == 1
     assert not (tmp_path / "b").exists()

@@ -120,6 +120,8 @@ def draw(data: str, target: str, n: int, seed: int, *, task: str = "auto", categ
     """Draw ``n`` rows stratified as the module describes, and ``check_rows`` left-out rows."""
     if n < 1:
         raise InputError(f"--sample {n}: give the number of rows to sample (at least 1)")
+    import duckdb
+
     files = input_files(str(data))
     tmp = tempfile.mkdtemp(prefix="pf-duckdb-")
     try:
@@ -131,7 +133,13 @@ def draw(data: str, target: str, n: int, seed: int, *, task: str = "auto", categ
             for c in cols:
                 if c not in names:
                     raise InputError(f"{data}: {flag} names column '{c}', which is not in the data")
-        return _draw(con, data, files, names, text, target, n, seed, task, list(categorical), list(ignore), check_rows)
+        try:
+            return _draw(con, data, files, names, text, target, n, seed, task, list(categorical), list(ignore),
+                         check_rows)
+        except duckdb.Error as exc:  # a malformed row deep in a file: DuckDB finds it, not intake
+            first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+            raise InputError(f"{data}: DuckDB could not read the data ({first[:200]}): fix the file "
+                             "(quoting, field count, encoding) or convert it to Parquet") from None
     finally:
         shutil.rmtree(tmp, ignore_errors=True)
 
