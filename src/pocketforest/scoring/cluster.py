@@ -27,6 +27,7 @@ from __future__ import annotations
 import os
 import shutil
 import socket
+import sys
 import tempfile
 import threading
 from collections.abc import Sequence
@@ -262,7 +263,7 @@ def score_files(bundle: str | os.PathLike, data: str, model: str, out: str | Non
             rows, states[index[fut.key]] = fut.result()
             total += rows
             if not quiet:
-                print(f"\rscored {total:,} rows", end="", flush=True, file=_stderr())
+                print(f"\rscored {total:,} rows", end="", flush=True, file=sys.stderr)
         for state in states:  # in input order, so the warnings' examples are those of `score`
             stray.merge(state)
         if dest.is_dir():
@@ -277,16 +278,11 @@ def score_files(bundle: str | os.PathLike, data: str, model: str, out: str | Non
         if cluster is not None:
             cluster.close()
         if not quiet and total:
-            print(file=_stderr())
+            print(file=sys.stderr)
     if not quiet:
         for w in stray.warnings():
-            print(f"warning: {w}", file=_stderr())
+            print(f"warning: {w}", file=sys.stderr)
     return total
-
-
-def _stderr():
-    import sys
-    return sys.stderr
 
 
 def _score_piece(piece, out: str, *, ref: BundleRef, keep: list[str], chunk_rows: int) -> tuple[int, dict]:
