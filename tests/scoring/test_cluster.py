@@ -163,3 +163,14 @@ def test_api_names_missing_columns_before_computing(bundles, client):
     ddf = dd.from_pandas(synthetic_table(n=50, seed=2).drop(columns=["y", "x3"]), npartitions=2)
     with pytest.raises(InputError, match="'x3'.*the model needs"):
         score(ddf, bundles["regression"], "equation")
+
+
+def test_cli_engine_dask_starts_its_own_local_cluster(bundles, tmp_path):
+    data = _files(tmp_path / "in", n_files=2, rows=60)
+    out = tmp_path / "pred"
+    r = run_cli("score", str(bundles["regression"]), str(data / "*.parquet"), "--model", "equation",
+                "--engine", "dask", "--out", str(out), "-q")
+    assert r.returncode == 0, r.stderr
+    single = tmp_path / "single.parquet"
+    score_file(str(bundles["regression"]), str(data / "*.parquet"), "equation", str(single), quiet=True)
+    pd.testing.assert_frame_equal(pd.read_parquet(single), pd.read_parquet(out))
