@@ -54,6 +54,10 @@ def _worker_peak_mb() -> float:
     return maxrss_mb()
 
 
+def _worker_cpu_s() -> float:
+    return time.process_time()
+
+
 def child_score_cluster(config: dict) -> dict:
     """`score --engine dask` on a local cluster sized to the machine, started here and timed with
     the scoring (a user waits for both); each worker's peak memory read from the worker."""
@@ -66,14 +70,16 @@ def child_score_cluster(config: dict) -> dict:
     client = Client(cluster)
     up = time.perf_counter() - t
     try:
+        cpu0 = client.run(_worker_cpu_s)
         t1 = time.perf_counter()
         n = score_files(config["bundle"], config["data"], "forest", config["out"], quiet=True, client=client)
         scoring = time.perf_counter() - t1
+        cpu = sum(v - cpu0.get(k, 0.0) for k, v in client.run(_worker_cpu_s).items())
         workers = client.run(_worker_peak_mb)
     finally:
         client.close()
         cluster.close()
-    return {"seconds": up + scoring, "startup_s": up, "scoring_s": scoring, "rows": n,
+    return {"seconds": up + scoring, "startup_s": up, "scoring_s": scoring, "rows": n, "workers_cpu_s": cpu,
             "workers": len(workers), "worker_peak_mb": sorted(workers.values()), "client_peak_mb": maxrss_mb()}
 
 
@@ -137,7 +143,9 @@ def run(quick: bool, root: Path, say) -> Section:
     figures.append(Figure(f"cluster score / one-process score ({size['rows']:,} rows)", ratio, ">= 1.6",
                           judge(ratio, ">=", 1.6), {"single": single, "cluster": clus},
                           f"one process {single['seconds']:.1f} s ({single['maxrss_mb']:.0f} MB); cluster of "
-                          f"{clus['workers']} workers {clus['seconds']:.1f} s, of which start-up {clus['startup_s']:.1f} s"))
+                          f"{clus['workers']} workers {clus['seconds']:.1f} s, of which start-up {clus['startup_s']:.1f} s; "
+                          f"CPU s per million rows: one process {1e6 * single.get('cpu_s', float('nan')) / clus['rows']:.1f}, "
+                          f"workers {1e6 * clus.get('workers_cpu_s', float('nan')) / clus['rows']:.1f}"))
     figures.append(Figure("  peak memory per cluster worker, MB", max(clus["worker_peak_mb"]), "(shown)", None,
                           {"workers": clus["worker_peak_mb"], "client": clus["client_peak_mb"]},
                           "workers " + ", ".join(f"{v:.0f}" for v in clus["worker_peak_mb"])

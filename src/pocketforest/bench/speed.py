@@ -164,12 +164,12 @@ def _child_score(config: dict) -> dict:
     """`pocketforest score` exactly as the command line runs it, in its own process."""
     from ..cli import main
 
-    t = time.perf_counter()
+    t, cpu = time.perf_counter(), time.process_time()
     code = main(["score", config["bundle"], config["data"], "--model", config.get("model", "forest"),
                  "--out", config["out"], "-q"])
     if code != 0:
         raise RuntimeError(f"score exited {code}")
-    return {"seconds": time.perf_counter() - t, "maxrss_mb": maxrss_mb()}
+    return {"seconds": time.perf_counter() - t, "cpu_s": time.process_time() - cpu, "maxrss_mb": maxrss_mb()}
 
 
 CHILDREN = {"baseline": _child_baseline, "distill": _child_distill, "plain_copy": _child_plain_copy,
