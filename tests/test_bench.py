@@ -63,3 +63,19 @@ def test_quick_benchmark_reports_every_figure(tmp_path):
         if fig["value"] is None:
             assert "not in this build" in fig["note"] or fig["target"].startswith("(see")
     assert list(tmp_path.glob("pf-bench-*")) == []  # its scratch folder is removed
+
+
+def test_quick_cluster_section_reports_its_figures(tmp_path):
+    """`--cluster` at small sizes: the cluster ratio, worker memory, distill --sample with its
+    self-check and the Dask-backend fit figure are all measured (numbers not judged)."""
+    from pocketforest.bench import cluster
+
+    section = cluster.run(True, tmp_path, lambda text: None)
+    names = [f.name for f in section.figures]
+    assert names[0].startswith("cluster score / one-process score") and len(names) == 4
+    assert all(f.value is not None and f.value == f.value and f.value > 0 for f in section.figures)
+    raw = section.raw["cluster"]
+    assert raw["score_cluster"]["rows"] == 20_000 and raw["score_cluster"]["workers"] >= 1
+    assert raw["distill_sample"]["sample"]["sample_rows"] == 1_000
+    assert raw["distill_sample"]["sample"]["self_check"]["loss"]["tree"]["ci_low"] is not None
+    assert raw["fit"]["same_trees"]  # joblib's Dask backend grows the very same trees

@@ -123,6 +123,8 @@ def _manifest(r, created: str, nodes) -> dict:
         m["classes"] = classes
     if r.plan is not None:
         m["plan"] = r.plan.to_dict()
+    if getattr(r, "sample", None):
+        m["sample"] = r.sample
     return _clean(m)
 
 

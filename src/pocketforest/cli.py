@@ -62,6 +62,10 @@ def _distill_options(p: argparse.ArgumentParser) -> None:
                    help="always put these columns in the equation as main effects")
     p.add_argument("--drop-var", nargs="+", default=[], metavar="COL",
                    help="never use these columns in the equation (the forest still sees them)")
+    p.add_argument("--sample", type=int, metavar="N",
+                   help="distil a seeded sample of N rows, stratified on the target with every category level "
+                        "kept, read through DuckDB from a file, a folder or a quoted pattern too large for memory; "
+                        "then check the bundle on as many rows left out")
     p.add_argument("--force", action="store_true", help="replace an existing bundle")
     p.add_argument("--json", action="store_true", help="print the summary as JSON")
 
@@ -86,14 +90,20 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("score", help="predict new rows with a bundle's ONNX model")
     p.add_argument("bundle")
-    p.add_argument("data")
+    p.add_argument("data", help="a .csv, .tsv or .parquet file, a folder of them, or a quoted pattern such as 'data/*.parquet'")
     p.add_argument("--model", choices=["forest", "tree", "equation"], required=True)
-    p.add_argument("--out", help=".csv or .parquet file (default: CSV on stdout)")
+    p.add_argument("--out", help=".csv or .parquet file (default: CSV on stdout); with --engine dask a folder")
     p.add_argument("--keep", nargs="+", default=[], metavar="COL", help="input columns to copy into the output")
     p.add_argument("--explain", action="store_true",
                    help="also write why: with --model equation the linear predictor and each term's contribution "
                         "(link scale, intercept included, they add up to it); with --model tree the leaf and the "
                         "rules the row followed")
+    p.add_argument("--engine", choices=["single", "dask"], default="single",
+                   help="single: this process streams the rows (default); dask: a Dask cluster scores the files "
+                        "piece by piece and writes one Parquet file per piece into the folder --out")
+    p.add_argument("--scheduler", metavar="ADDRESS",
+                   help="with --engine dask: the address of a running Dask scheduler (default: a local cluster, "
+                        "one worker process per core)")
     _common(p)
 
     p = sub.add_parser("verify", help="check a bundle's files and every exported form against its reference rows")
@@ -136,6 +146,8 @@ def _check_distill_options(args: argparse.Namespace) -> None:
         raise InputError(f"--tree-leaves {args.tree_leaves}: the surrogate tree needs at least 2 leaves")
     if not 0.0 <= args.tree_margin < 1.0:
         raise InputError(f"--tree-margin {args.tree_margin:g}: give a fidelity margin from 0 to below 1, such as 0.02")
+    if getattr(args, "sample", None) is not None and args.sample < 1:
+        raise InputError(f"--sample {args.sample}: give the number of rows to sample (at least 1)")
 
 
 def _run_distill(data: str, target: str, args: argparse.Namespace) -> int:
@@ -151,7 +163,16 @@ def _run_distill(data: str, target: str, args: argparse.Namespace) -> int:
     out = args.out or _default_out(data)
     if Path(out).exists() and not args.force:
         raise InputError(f"{out} already exists: choose another --out or pass --force to replace it")
-    table = load(data, target, task=args.task, categorical=args.categorical, ignore=args.ignore)
+    drawn = None
+    if args.sample is not None:
+        from .intake import prepare
+        from .sample import draw
+        drawn = draw(data, target, args.sample, args.seed, task=args.task, categorical=args.categorical,
+                     ignore=args.ignore)
+        table = prepare(drawn.sample, target, task=args.task, categorical=args.categorical, ignore=args.ignore,
+                        source=data)
+    else:
+        table = load(data, target, task=args.task, categorical=args.categorical, ignore=args.ignore)
     from .discovery import check_requests
     from .intake.screening import column_named
     names = [f.name for f in table.features]
@@ -171,6 +192,11 @@ def _run_distill(data: str, target: str, args: argparse.Namespace) -> int:
                         synthetic_rows=args.synthetic_rows, cap_terms=not args.no_term_cap,
                         max_terms=args.max_terms, keep_vars=tuple(args.keep_var), drop_vars=tuple(args.drop_var))
     result = distill(table, settings)
+    if drawn is not None:
+        from .sample import self_check
+        if not args.quiet:
+            print(f"checking on {len(drawn.check):,} rows the sample left out", file=sys.stderr)
+        result.sample = {**drawn.design, "self_check": self_check(result, drawn.check, data)}
     path = result.write(out, force=args.force)
     if args.json:
         print(json.dumps(summary_dict(result, path), indent=2))
@@ -194,9 +220,18 @@ def _run(args: argparse.Namespace) -> int:
             raise InputError(f"demo data {DEMO_DATA} not found: run `python demo_data/make_demo.py` first")
         return _run_distill(str(DEMO_DATA), DEMO_TARGET, _demo_args(args))
     if args.command == "score":
-        from .scoring.score import score_file
-        n = score_file(args.bundle, args.data, args.model, args.out, args.keep, quiet=args.quiet,
-                       explain=args.explain)
+        if args.scheduler and args.engine != "dask":
+            raise InputError("--scheduler needs --engine dask")
+        if args.engine == "dask":
+            if args.explain:
+                raise InputError("--explain runs with --engine single for now: drop one of them")
+            from .scoring.cluster import score_files
+            n = score_files(args.bundle, args.data, args.model, args.out, args.keep, scheduler=args.scheduler,
+                            quiet=args.quiet)
+        else:
+            from .scoring.score import score_file
+            n = score_file(args.bundle, args.data, args.model, args.out, args.keep, quiet=args.quiet,
+                           explain=args.explain)
         if args.out and not args.quiet:
             print(f"wrote {n} predictions to {args.out}", file=sys.stderr)
         return 0

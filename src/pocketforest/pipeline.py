@@ -85,6 +85,8 @@ class Distillation:
     #: Wall seconds per stage (split, forest, importance, discovery, equation, tree, judge); read by
     #: the benchmark so each stage's share of the run is measured, not guessed.
     timings: dict[str, float] = field(default_factory=dict)
+    #: `distill --sample`: the sample design and the check on left-out rows (manifest "sample")
+    sample: dict | None = None
 
     @property
     def kinds(self) -> dict[str, str]:

@@ -38,7 +38,8 @@ def result_dict(r) -> dict:
 def summary_dict(r, path: str) -> dict:
     report = str(Path(path) / "report.html")
     return {"bundle": path, **result_dict(r), "report": report, "open_report": open_command(report),
-            "verify": f"pocketforest verify {shlex.quote(path)}"}
+            "verify": f"pocketforest verify {shlex.quote(path)}",
+            **({"sample": r.sample} if getattr(r, "sample", None) else {})}
 
 
 def _f(v, fmt: str) -> str:
@@ -89,12 +90,25 @@ def format_summary(d: dict) -> str:
     rule = "-" * max(len(line) for line in table)
     lines += [table[0], rule] + table[1:]
     lines += ["", f"equation: {d['formula']}", f"tree:     depth {d['tree']['depth']}, {d['tree']['leaves']} leaves"]
+    if d.get("sample"):
+        lines.append(sample_line(d["sample"]))
     if d.get("warnings"):
         n = len(d["warnings"])
         lines.append(f"notes:    {n} (data and fitting notes; all in the report's first section)")
     if "bundle" in d:
         lines += ["", f"bundle:   {d['bundle']}", f"report:   {d['open_report']}", f"check:    {d['verify']}"]
     return "\n".join(lines)
+
+
+def sample_line(sm: dict) -> str:
+    """`distill --sample`: how many rows of how many, and the check on left-out rows."""
+    text = f"sample:   {sm['sample_rows']:,} of {sm['rows_with_target']:,} rows with a target"
+    chk = sm.get("self_check") or {}
+    if chk.get("loss"):
+        parts = [f"{m} loss {_f(lo['value'], '+.4f')} ({_f(lo['ci_low'], '+.4f')} to {_f(lo['ci_high'], '+.4f')})"
+                 for m, lo in chk["loss"].items()]
+        text += f"; on {chk['evaluation']['n']:,} rows left out: " + ", ".join(parts)
+    return text
 
 
 def summary_text(r, path: str) -> str:

@@ -5,8 +5,9 @@ Results come back in input order, so sums over them are added in the same order 
 from __future__ import annotations
 
 import os
+from collections import deque
 from concurrent.futures import ThreadPoolExecutor
-from typing import Callable, Iterable, TypeVar
+from typing import Callable, Iterable, Iterator, TypeVar
 
 T = TypeVar("T")
 R = TypeVar("R")
@@ -30,3 +31,29 @@ def thread_map(fn: Callable[..., R], items: Iterable[T], n_jobs: int | None = -1
         return [call(it) for it in items]
     with ThreadPoolExecutor(min(n, len(items))) as pool:
         return list(pool.map(call, items))
+
+
+def ordered_stream(fn: Callable[..., R], items: Iterable[tuple], n_jobs: int | None = -1) -> Iterator[R]:
+    """``fn(*item)`` for a stream of items on a pool of threads, yielded in input order, with at
+    most two items per thread in flight so memory stays bounded by the chunk size.
+
+    For `score`: one thread reads the next chunk while others type and predict earlier ones
+    (onnxruntime and most pandas work release the GIL).
+    """
+    n = workers(n_jobs)
+    if n == 1:
+        for it in items:
+            yield fn(*it)
+        return
+    pending: deque = deque()
+    with ThreadPoolExecutor(n) as pool:
+        try:
+            for it in items:
+                pending.append(pool.submit(fn, *it))
+                if len(pending) >= 2 * n:
+                    yield pending.popleft().result()
+            while pending:
+                yield pending.popleft().result()
+        finally:
+            for f in pending:
+                f.cancel()

@@ -8,7 +8,9 @@ Sections, each a submodule with ``run(quick, root, say) -> common.Section``:
 
 * :mod:`.speed`  — distill, scoring, memory and size figures (always run);
 * :mod:`.honest` — null rejection and loss-interval coverage from :mod:`pocketforest.simulate`
-  (always run).
+  (always run);
+* :mod:`.cluster` — ``--cluster``: score on a local Dask cluster against one process, and
+  ``distill --sample`` with its self-check, on 10,000,000 rows of Parquet.
 * :mod:`.anchor` — the equation against hand-built GLMs on public tables (``--anchor``);
 * :mod:`.power`  — planted-truth recovery and noise by size (``--power``).
 

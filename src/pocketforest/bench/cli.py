@@ -9,7 +9,7 @@ from dataclasses import asdict
 from pathlib import Path
 
 from ..errors import InputError
-from . import anchor, honest, power, speed, tree
+from . import anchor, cluster, honest, power, speed, tree
 from .common import machine
 
 #: Every section as (name, flag, module, help). flag None: always runs. A new section is a new
@@ -20,11 +20,12 @@ SECTIONS = [
     ("anchor", "--anchor", anchor, "the equation against hand-built GLMs on public tables (issue 12)"),
     ("power", "--power", power, "planted-truth recovery and noise by size (issue 11)"),
     ("tree", "--tree", tree, "surrogate tree fidelity: greedy vs search, synthetic rows, default size"),
+    ("cluster", "--cluster", cluster, "score on a local Dask cluster and distill --sample, 10,000,000 rows"),
 ]
 #: A section may also offer ``add_arguments(parser)`` (its own options) and ``options(args) ->
 #: dict`` (keyword arguments for its ``run``; raises InputError on a bad value).
 #: Child-process functions by name, for ``--child`` (each section's own).
-CHILDREN = {**speed.CHILDREN}
+CHILDREN = {**speed.CHILDREN, **cluster.CHILDREN}
 
 
 def run(quick: bool = False, work: str | None = None, say=print, only: set[str] | None = None,

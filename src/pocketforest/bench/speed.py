@@ -106,6 +106,15 @@ def _child_distill(config: dict) -> dict:
             parts = [{k: v[i:i + size] for k, v in fd.items()} for i in range(0, len(batch), size)]
             secs = best_of(lambda: [sess.run(None, p) for p in parts], 3)
             out["onnx_batch"][f"{name}/batch={size}"] = secs / len(batch)
+    # what `score` and each Dask worker do: single-threaded calls, one per core at once
+    from concurrent.futures import ThreadPoolExecutor
+    cores = os.cpu_count() or 1
+    for size in config.get("batch_sizes", [len(batch)]):
+        parts = [{k: v[i:i + size] for k, v in fd.items()} for i in range(0, len(batch), size)]
+        if len(parts) >= cores:
+            with ThreadPoolExecutor(cores) as pool:
+                secs = best_of(lambda: list(pool.map(lambda q: sessions["threads=1"].run(None, q), parts)), 3)
+            out["onnx_batch"][f"threads=1 x {cores} calls/batch={size}"] = secs / len(batch)
     one = batch.iloc[[0]]
     one_frame = model_frame(one, table.features)
     one_feed = feeds(one, features)
@@ -155,12 +164,12 @@ def _child_score(config: dict) -> dict:
     """`pocketforest score` exactly as the command line runs it, in its own process."""
     from ..cli import main
 
-    t = time.perf_counter()
+    t, cpu = time.perf_counter(), time.process_time()
     code = main(["score", config["bundle"], config["data"], "--model", config.get("model", "forest"),
                  "--out", config["out"], "-q"])
     if code != 0:
         raise RuntimeError(f"score exited {code}")
-    return {"seconds": time.perf_counter() - t, "maxrss_mb": maxrss_mb()}
+    return {"seconds": time.perf_counter() - t, "cpu_s": time.process_time() - cpu, "maxrss_mb": maxrss_mb()}
 
 
 CHILDREN = {"baseline": _child_baseline, "distill": _child_distill, "plain_copy": _child_plain_copy,
@@ -186,7 +195,7 @@ def _measure(size: dict, root: Path, say) -> tuple[list[Figure], dict]:
     d = run_child("distill", {"data": str(data), "bundle": str(bundle), "trees": size["trees"],
                                "bootstrap": size["bootstrap"],
                                "batch": size["batch"], "single_repeats": size["single_repeats"],
-                               "batch_sizes": [size["batch"], 1000] if size["batch"] > 1000 else [size["batch"]]})
+                               "batch_sizes": [size["batch"], size["batch"] // 2, 1000] if size["batch"] > 1000 else [size["batch"]]})
     score_data = root / "score.csv"
     say(f"writing {size['score_rows']:,} rows to score")
     make_data(size["score_rows"], size["columns"], seed=1, target=False).to_csv(score_data, index=False)

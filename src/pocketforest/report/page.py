@@ -163,9 +163,34 @@ def _data(r, m: dict) -> str:
     warn = m.get("warnings") or []
     if warn:
         parts.append("<h3>Warnings</h3><ul class='warn'>" + "".join(f"<li>{_e(w)}</li>" for w in warn) + "</ul>")
+    if m.get("sample"):
+        parts.append(_sample(m))
     oob = m["forest"].get("oob") or {}
     parts.append(f"<p>Forest: {m['forest']['trees']} trees; out-of-bag "
                  + ", ".join(f"{_e(k)} {_num(v)}" for k, v in oob.items()) + ".</p>")
+    return "".join(parts)
+
+
+def _sample(m: dict) -> str:
+    """`distill --sample`: the design, and the bundle checked on rows the sample left out."""
+    sm = m["sample"]
+    st = sm.get("strata") or {}
+    parts = [f"<h3>Sample</h3><p>These models were fitted on a seeded sample of {sm['sample_rows']:,} of the "
+             f"{sm['rows_with_target']:,} rows with a target ({sm['rows_in_data']:,} rows in the data), stratified on "
+             f"<code>{_e(st.get('on', ''))}</code> ({_e(st.get('kind', ''))}) with every category level kept"
+             + (f"; {sm['rows_topped_up']} rows were added so that rare levels are present" if sm.get("rows_topped_up")
+                else "") + ". The splits below divide the sample.</p>"]
+    chk = sm.get("self_check") or {}
+    if chk.get("evaluation"):
+        ev = chk["evaluation"]
+        names = list(ev["forest"])
+        parts.append(f"<p>Checked on {ev['n']:,} other rows, a seeded random sample of the rows the sample left "
+                     "out (computed as <code>pocketforest compare</code> computes it):</p>")
+        parts.append(_table(["model"] + names, [[mdl] + [ev[mdl].get(k) for k in names]
+                                                for mdl in ("forest", "tree", "equation")]))
+        parts.append(_table(["surrogate", "loss", "95% interval"],
+                            [[mdl, f"{lo['value']:+.4f}", f"{lo['ci_low']:+.4f} to {lo['ci_high']:+.4f}"]
+                             for mdl, lo in chk["loss"].items()]))
     return "".join(parts)
 
 

@@ -116,13 +116,8 @@ def compare(bundle: str | os.PathLike, data: str | os.PathLike, *, max_loss: flo
                          "finite value on the others, see the README): compare needs more rows inside its range")
     y = y[scored_ok]
     preds = {m: p[scored_ok] for m, p in preds.items()}
-    evaluation = {"on": "new rows", "n": int(len(y)),
-                  **{m: metrics(y, preds[m], task, classes) for m in MODELS}}
-    fid = {m: fidelity(preds["forest"], preds[m], task) for m in ("tree", "equation")}
     resamples = resamples or int(manifest.get("loss", {}).get("tree", {}).get("resamples", 1000))
-    loss = {m: loss_with_interval(y, preds["forest"], preds[m], task, classes, resamples=resamples,
-                                  seed=int(manifest.get("seed", 0)))
-            for m in ("tree", "equation")}
+    evaluation, fid, loss = judge(y, preds, task, classes, resamples=resamples, seed=int(manifest.get("seed", 0)))
     training = {"evaluation": manifest.get("evaluation"), "fidelity": manifest.get("fidelity"),
                 "loss": manifest.get("loss")}
     result = Comparison(str(bundle), str(data), task, target, int(len(y)), without, int(unknown.sum()),
@@ -131,6 +126,24 @@ def compare(bundle: str | os.PathLike, data: str | os.PathLike, *, max_loss: flo
                         rows_without_prediction=without_prediction)
     result.breaches = _breaches(result, max_loss, max_outside)
     return result
+
+
+def judge(y: np.ndarray, preds: dict[str, np.ndarray], task: str, classes: list[str] | None, *,
+          resamples: int, seed: int) -> tuple[dict, dict, dict]:
+    """Each model's metrics, the surrogates' fidelity, and their loss with its paired-bootstrap
+    interval on labelled rows: what `compare` reports, and what `distill --sample` measures on
+    its check rows."""
+    evaluation = {"on": "new rows", "n": int(len(y)),
+                  **{m: metrics(y, preds[m], task, classes) for m in MODELS}}
+    fid = {m: fidelity(preds["forest"], preds[m], task) for m in ("tree", "equation")}
+    loss = {m: loss_with_interval(y, preds["forest"], preds[m], task, classes, resamples=resamples, seed=seed)
+            for m in ("tree", "equation")}
+    return evaluation, fid, loss
+
+
+def labels(y: pd.Series, task: str, classes: list[str] | None, source, target: str) -> tuple[np.ndarray, np.ndarray]:
+    """Typed outcome and a mask of rows whose class the bundle never saw."""
+    return _labels(y, task, classes, source, target)
 
 
 def _labels(y: pd.Series, task: str, classes: list[str] | None, source, target: str) -> tuple[np.ndarray, np.ndarray]:

@@ -35,6 +35,12 @@ def session_options(*, threads: int | None = None, latency: bool = False) -> ort
     * ``latency=True`` (one row at a time): one intra-op thread; a thread pool only adds
       hand-off cost for a single row.
     * batch (default): ``threads`` intra-op threads (None = onnxruntime's default, one per core).
+      Scoring (:class:`Scorer`) uses ONE: onnxruntime 1.32's tree-ensemble kernel splits the trees
+      between threads on batches of more than 50 rows and adds the partial sums, so with two
+      threads a row's prediction changes in its last bits with the batch size and with the core
+      count (measured on a 150-tree forest); with one thread it does not, so every chunking, every
+      machine and every Dask worker gives the same numbers. `score` and the cluster use the cores
+      by scoring several chunks at once instead.
     * Always: full graph optimisation, sequential execution (the graphs are chains), and no
       spin-waiting between calls; spinning threads burn a shared CPU and measured slower when the
       machine is busy (batch of 20,000 rows, 200 trees: 1.24 s with spinning vs 0.69 s without,
@@ -66,7 +72,7 @@ class Scorer:
     """One ONNX model of a bundle, ready to predict on frames."""
 
     def __init__(self, bundle: str | Path, model: str, manifest: dict | None = None, *, check: bool = True,
-                 threads: int | None = None, latency: bool = False):
+                 threads: int | None = 1, latency: bool = False):
         if model not in MODELS:
             raise InputError(f"--model '{model}' is not one of {', '.join(MODELS)}")
         self.model = model

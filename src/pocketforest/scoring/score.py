@@ -24,10 +24,12 @@ import pandas as pd
 from ..errors import InputError
 from ..features import Feature
 from ..intake.coerce import coerce_for_scoring
+from ..intake.pieces import input_files
 from ..intake.reading import iter_table
 from .bundle_io import read_manifest
 from .explain import Explainer, equation_columns
 from .runtime import Scorer, envelope_count
+from ..threads import ordered_stream
 
 CHUNK_ROWS = 20_000  # a 100,000-row chunk of text cells peaked near 250 MB; 20,000 near 45 MB
 
@@ -37,8 +39,12 @@ def features_of(manifest: dict) -> list[Feature]:
     return [Feature(**{k: f.get(k) for k in keys}) for f in manifest["features"]]
 
 
-class _Stray:
-    """Running tally of values outside the training envelope, for one warning per column."""
+class Stray:
+    """Running tally of values outside the training envelope, for one warning per column.
+
+    A cluster task returns its tally as :meth:`state` (plain data) and the client adds them up
+    with :meth:`merge`, in input order, so the warnings are those of single-machine `score`.
+    """
 
     def __init__(self, features: list[Feature]):
         self.features = features
@@ -64,6 +70,20 @@ class _Stray:
                 if n:
                     self.outside[f.name] = self.outside.get(f.name, 0) + n
 
+    def state(self) -> dict:
+        return {"unseen": dict(self.unseen), "examples": {k: list(v) for k, v in self.examples.items()},
+                "outside": dict(self.outside)}
+
+    def merge(self, state: dict) -> None:
+        for name, n in state["unseen"].items():
+            self.unseen[name] = self.unseen.get(name, 0) + n
+        for name, values in state["examples"].items():
+            ex = self.examples.setdefault(name, [])
+            ex.extend(v for v in values if v not in ex)
+            del ex[3:]
+        for name, n in state["outside"].items():
+            self.outside[name] = self.outside.get(name, 0) + n
+
     def warnings(self) -> list[str]:
         out = []
         for name, n in self.unseen.items():
@@ -85,7 +105,7 @@ def _check_out(out: str | None) -> None:
         raise InputError(f"--out {out}: folder {Path(out).parent} does not exist: create it first")
 
 
-class _ParquetSink:
+class ParquetSink:
     """Appends frames to one Parquet file with the schema fixed by the first chunk."""
 
     def __init__(self, path: str):
@@ -121,52 +141,107 @@ def _why(bundle: str, manifest: dict, model: str):
     return explainer.tree, ["tree_leaf", "tree_path"]
 
 
+def check_keep(manifest: dict, keep: list[str], data, extra: list[str] = ()) -> None:
+    """A --keep column must not take the name of an output column."""
+    names = output_names(manifest) + list(extra)
+    clash = [k for k in keep if k in names + ["inputs_outside_training"]]
+    if clash:
+        raise InputError(f"--keep column '{clash[0]}' has the name of an output column: rename it in {data}")
+
+
+def output_names(manifest: dict) -> list[str]:
+    if manifest["task"] == "regression":
+        return ["prediction"]
+    return ["label"] + [f"prob_{c}" for c in manifest["classes"]]
+
+
+def score_chunk(scorer: Scorer, manifest: dict, chunk: pd.DataFrame, keep: list[str], *, source: str,
+                first_row: int = 0, stray: Stray | None = None, why=None) -> pd.DataFrame:
+    """One chunk of raw rows in, its output rows out (``keep`` columns, predictions,
+    ``inputs_outside_training``), with a fresh 0-based index.
+
+    THE per-partition function: single-machine `score`, the Dask engine and the Python API on a
+    Dask or Spark partition all call it, so their columns and values agree by construction.
+    """
+    typed = coerce_for_scoring(chunk, features_of(manifest), source=source, first_row=first_row)
+    pred = scorer.columns(typed)
+    pred["inputs_outside_training"] = envelope_count(typed, manifest["features"])
+    if why is not None:   # --explain: the surrogate's reasons per row
+        pred = pd.concat([pred.reset_index(drop=True), why(typed).reset_index(drop=True)], axis=1)
+    if stray is not None:
+        stray.add(typed)
+    return pd.concat([chunk[keep].reset_index(drop=True), pred.reset_index(drop=True)], axis=1)
+
+
+def score_frame(scorer: Scorer, manifest: dict, frame: pd.DataFrame, keep: list[str], *, source: str,
+                chunk_rows: int = CHUNK_ROWS) -> pd.DataFrame:
+    """:func:`score_chunk` over a whole in-memory partition, ``chunk_rows`` at a time (the typed
+    copies of a chunk, not the partition, bound the extra memory); the output keeps ``frame``'s
+    index and row order. Error line numbers count the partition's rows from 2, as if it were a file."""
+    parts = [score_chunk(scorer, manifest, frame.iloc[i:i + chunk_rows], keep, source=source, first_row=i)
+             for i in range(0, len(frame), chunk_rows)] or [score_chunk(scorer, manifest, frame, keep, source=source)]
+    out = pd.concat(parts, axis=0, ignore_index=True) if len(parts) > 1 else parts[0]
+    out.index = frame.index
+    return out
+
+
 def score_file(bundle: str, data: str, model: str, out: str | None, keep: list[str] | None = None,
-               quiet: bool = False, chunk_rows: int = CHUNK_ROWS, explain: bool = False) -> int:
-    """Write predictions to ``out`` (CSV or Parquet by extension) or CSV on stdout; returns rows
-    scored. ``explain`` adds the surrogate's reasons per row (:func:`_why`)."""
+               quiet: bool = False, chunk_rows: int = CHUNK_ROWS, threads: int | None = -1,
+               explain: bool = False) -> int:
+    """Write predictions to ``out`` (CSV or Parquet by extension) or CSV on stdout; returns rows scored.
+
+    ``data`` is a file, a folder of files or a glob pattern (:func:`pieces.input_files`); the
+    files are scored one after another into the one output, in order. ``threads`` chunks are
+    scored at once (-1: one per core), each with a single-threaded session call. ``explain`` adds
+    the surrogate's reasons per row (:func:`_why`)."""
     manifest = read_manifest(bundle)
     scorer = Scorer(bundle, model, manifest)
     features = features_of(manifest)
     keep = list(dict.fromkeys(k.strip() for k in keep or []))   # header names are read stripped
     _check_out(out)
     why, why_names = _why(bundle, manifest, model) if explain else (None, [])
-    names = ["prediction"] if manifest["task"] == "regression" else ["label"] + [f"prob_{c}" for c in manifest["classes"]]
-    clash = [k for k in keep if k in names + ["inputs_outside_training"] + why_names]
-    if clash:
-        raise InputError(f"--keep column '{clash[0]}' has the name of an output column: rename it in {data}")
-    stray = _Stray(features)
-    tmp_path, sink, total, chunks = None, None, 0, None
+    check_keep(manifest, keep, data, why_names)
+    files = input_files(str(data))
+    stray = Stray(features)
+    tmp_path, sink, total = None, None, 0
     try:
         if out is not None:
             fd, tmp_path = tempfile.mkstemp(prefix=".pf-score-", suffix=Path(out).suffix.lower(),
                                             dir=str(Path(out).resolve().parent))
             os.close(fd)
             if tmp_path.endswith(".parquet"):
-                sink = _ParquetSink(tmp_path)
+                sink = ParquetSink(tmp_path)
         wanted = [f.name for f in features] + keep
-        chunks = iter_table(data, chunksize=chunk_rows, columns=wanted)
-        for first_row, chunk in chunks:
-            if first_row == 0:
-                absent = [k for k in keep if k not in chunk.columns]
-                if absent:
-                    raise InputError(f"{data}: --keep column(s) {', '.join(repr(k) for k in absent)} not found: "
-                                     "check the names (they are case-sensitive)")
-            typed = coerce_for_scoring(chunk, features, source=str(data), first_row=first_row)
-            pred = scorer.columns(typed)
-            pred["inputs_outside_training"] = envelope_count(typed, manifest["features"])
-            if why is not None:
-                pred = pd.concat([pred, why(typed)], axis=1)
-            stray.add(typed)
-            frame = pd.concat([chunk[keep].reset_index(drop=True), pred.reset_index(drop=True)], axis=1)
+
+        def chunks():
+            for path in files:
+                for first_row, chunk in iter_table(path, chunksize=chunk_rows, columns=wanted):
+                    if first_row == 0:
+                        absent = [k for k in keep if k not in chunk.columns]
+                        if absent:
+                            raise InputError(f"{path}: --keep column(s) {', '.join(repr(k) for k in absent)} "
+                                             "not found: check the names (they are case-sensitive)")
+                    yield path, first_row, chunk
+
+        def work(path, first_row, chunk):
+            own = Stray(features)
+            return score_chunk(scorer, manifest, chunk, keep, source=str(path), first_row=first_row, stray=own,
+                               why=why), own
+
+        started = False
+        # chunks are typed and predicted on every core, one single-threaded session call each,
+        # and written in input order (see runtime.session_options for why one thread per call)
+        for frame, own in ordered_stream(work, chunks(), threads):
+            stray.merge(own.state())
             if out is None:
-                frame.to_csv(sys.stdout, index=False, header=(first_row == 0), lineterminator="\n")
+                frame.to_csv(sys.stdout, index=False, header=not started, lineterminator="\n")
             elif sink is not None:
                 sink.write(frame)
             else:
-                frame.to_csv(tmp_path, index=False, header=(first_row == 0), mode="w" if first_row == 0 else "a",
+                frame.to_csv(tmp_path, index=False, header=not started, mode="a" if started else "w",
                              lineterminator="\n")
-            total += len(chunk)
+            started = True
+            total += len(frame)
             if not quiet and total:
                 print(f"\rscored {total:,} rows", end="", file=sys.stderr, flush=True)
         if sink is not None:
