@@ -26,7 +26,7 @@ from .resample import Plan, choose_plan, fold_assignments, out_of_fold
 from .sizing import anticipated_r2
 from .features import Table
 from .split import Splits, make_splits
-from .surrogate import TreeFit, distill_tree
+from .surrogate import TreeFit, distill_tree, mean_frontier
 from .terms import main_effects
 
 
@@ -237,7 +237,11 @@ def _judge_by_cross_validation(r: Distillation, plan: Plan) -> None:
     y = _outcome(table.data[table.target].to_numpy(), task)
     r.fold_assignment = fold_assignments(y, task, plan, r.settings.seed)
     inner = dataclasses.replace(r.settings, split=plan.split)
-    oof = out_of_fold(table, inner, r.fold_assignment, lambda t, st: _fit_models(t, st, plan.split))
+    curves: list = []
+    oof = out_of_fold(table, inner, r.fold_assignment, lambda t, st: _fit_models(t, st, plan.split), curves)
+    if curves:   # the tree's size/fidelity frontier, averaged over the folds' held-out rows
+        r.tree.record_held_out(mean_frontier([c[0] for c in curves]), mean_frontier([c[1] for c in curves], key="depth"),
+                               on="cross-validation")
     repeats, n = r.fold_assignment.shape
     stacked = {m: p.reshape((repeats * n,) + p.shape[2:]) for m, p in oof.items()}
     y_s = np.tile(y, repeats)

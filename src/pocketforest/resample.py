@@ -68,11 +68,15 @@ def fold_assignments(y: np.ndarray, task: str, plan: Plan, seed: int) -> np.ndar
     return out
 
 
-def out_of_fold(table, settings, folds: np.ndarray, fit_models) -> dict[str, np.ndarray]:
+def out_of_fold(table, settings, folds: np.ndarray, fit_models, tree_curves: list | None = None) -> dict[str, np.ndarray]:
     """Every model's prediction for every row from the pipeline refitted without that row's fold.
 
     ``fit_models(table, settings)`` is the pipeline's fitting step; returns {model: [repeats, n, ...]}.
+    ``tree_curves``, when given, receives each fold's (frontier, depth curve) fidelity on its
+    held-out rows, for the tree's size/fidelity frontier.
     """
+    from .design import model_frame
+    from .surrogate import depth_fidelity, frontier_fidelity
     n = len(table.data)
     preds: dict[str, list] = {"forest": [], "tree": [], "equation": []}
     inner = dataclasses.replace(settings, quiet=True)
@@ -84,6 +88,9 @@ def out_of_fold(table, settings, folds: np.ndarray, fit_models) -> dict[str, np.
             sub = dataclasses.replace(table, data=table.data.iloc[train].reset_index(drop=True))
             fit = fit_models(sub, dataclasses.replace(inner, seed=settings.seed + 7 * (r * 100 + int(k) + 1)))
             rows = table.data.iloc[held].reset_index(drop=True)
+            if tree_curves is not None:
+                X = model_frame(rows, table.features)
+                tree_curves.append((frontier_fidelity(fit.tree, fit.forest, X), depth_fidelity(fit.tree, fit.forest, X)))
             for m in preds:
                 p = np.asarray(fit.predict(rows, m), dtype=float)
                 if per_model[m] is None:

@@ -249,15 +249,17 @@ def frontier_fidelity(fit: TreeFit, forest: ForestFit, X: pd.DataFrame) -> list[
     return _frontier(fit.grown, Xt, forest.predict_design(Xt), forest.task)
 
 
-def mean_frontier(runs: list[list[dict]]) -> list[dict]:
-    """Average of several :func:`frontier_fidelity` results, per size present in every run."""
-    common = set.intersection(*({row["leaves"] for row in run} for run in runs)) if runs else set()
+def mean_frontier(runs: list[list[dict]], key: str = "leaves") -> list[dict]:
+    """Average of several :func:`frontier_fidelity` results, per size present in every run
+    (``key="depth"``: of several :func:`depth_fidelity` results, per depth)."""
+    other = "depth" if key == "leaves" else "leaves"
+    common = set.intersection(*({row[key] for row in run} for run in runs)) if runs else set()
     out = []
     for k in sorted(common):
-        rows = [next(r for r in run if r["leaves"] == k) for run in runs]
-        keys = [key for key in rows[0] if key not in ("leaves", "depth")]
-        out.append({"leaves": k, "depth": max(r["depth"] for r in rows),
-                    **{key: float(np.mean([r[key] for r in rows])) for key in keys}})
+        rows = [next(r for r in run if r[key] == k) for run in runs]
+        keys = [name for name in rows[0] if name not in ("leaves", "depth")]
+        out.append({key: k, other: max(r[other] for r in rows),
+                    **{name: float(np.mean([r[name] for r in rows])) for name in keys}})
     return out
 
 
