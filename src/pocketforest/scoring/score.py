@@ -250,8 +250,6 @@ def score_file(bundle: str, data: str, model: str, out: str | None, keep: list[s
             os.replace(tmp_path, out)
             tmp_path = None
     finally:
-        if chunks is not None:
-            chunks.close()   # the input file is closed now, not when the generator is collected
         if sink is not None:
             sink.close()
         if tmp_path is not None and os.path.exists(tmp_path):
