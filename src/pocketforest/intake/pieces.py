@@ -20,7 +20,7 @@ import pandas as pd
 from ..errors import InputError
 from ..features import Feature
 from .coerce import coerce_for_scoring
-from .reading import _check_path, _clean_parquet_frame, _csv_header, _parquet_error, _parquet_selection, iter_table
+from .reading import _check_path, _csv_header, _parquet_error, _parquet_selection, iter_table, parquet_chunks
 
 DATA_SUFFIXES = (".csv", ".tsv", ".parquet")
 #: rows per cluster piece when a Parquet file has several row groups (a piece is one task)
@@ -135,14 +135,4 @@ def iter_piece(piece: Piece, columns: Sequence[str], chunk_rows: int) -> Iterato
                                   columns=_parquet_selection(pf.schema_arrow.names, columns))
     except (OSError, ValueError) as exc:
         raise _parquet_error(path, exc) from None
-    first = piece.first_row
-    while True:
-        try:
-            batch = next(batches, None)
-        except (OSError, ValueError) as exc:
-            raise _parquet_error(path, exc) from None
-        if batch is None:
-            break
-        frame = _clean_parquet_frame(batch.to_pandas(), path)
-        yield first, frame
-        first += len(frame)
+    yield from parquet_chunks(path, batches, piece.first_row)

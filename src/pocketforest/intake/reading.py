@@ -48,6 +48,22 @@ def read_table(path: str | os.PathLike[str], columns: Sequence[str] | None = Non
     return _finish_csv_frame(df, names, p)
 
 
+def parquet_chunks(path: Path, batches, first: int) -> Iterator[tuple[int, pd.DataFrame]]:
+    """``(first_row, frame)`` for each pyarrow record batch, cleaned like :func:`read_table`; a
+    batch pyarrow cannot read is one input error naming the file. Returns the row after the last."""
+    while True:
+        try:
+            batch = next(batches, None)
+        except (OSError, ValueError) as exc:  # pyarrow's ArrowInvalid is a ValueError
+            raise _parquet_error(path, exc) from None
+        if batch is None:
+            break
+        frame = _clean_parquet_frame(batch.to_pandas(), path)
+        yield first, frame
+        first += len(frame)
+    return first   # the row after the last one (0: the file had no data rows)
+
+
 def iter_table(
     path: str | os.PathLike[str], chunksize: int = 100_000, columns: Sequence[str] | None = None
 ) -> Iterator[tuple[int, pd.DataFrame]]:
@@ -68,16 +84,7 @@ def iter_table(
             batches = pf.iter_batches(batch_size=chunksize, columns=raw)
         except (OSError, ValueError) as exc:  # pyarrow's ArrowInvalid is a ValueError
             raise _parquet_error(p, exc) from None
-        while True:
-            try:
-                batch = next(batches, None)
-            except (OSError, ValueError) as exc:
-                raise _parquet_error(p, exc) from None
-            if batch is None:
-                break
-            df = _clean_parquet_frame(batch.to_pandas(), p)
-            yield first, df
-            first += len(df)
+        first = yield from parquet_chunks(p, batches, first)
     else:
         header = _csv_header(p, sep)
         names, kwargs = _csv_selection(header, columns, sep)
