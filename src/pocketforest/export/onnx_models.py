@@ -186,7 +186,7 @@ class _GraphBuilder:
         return self.op("Where", [self.op("IsInf", [x]), self.const([[np.nan]]), x])
 
 
-def _explain_outputs(g: _GraphBuilder, eq: EquationFit, design: str, eta: str) -> list:
+def _explain_outputs(g: _GraphBuilder, eq: EquationFit, design: str, eta: str, coef: np.ndarray) -> list:
     """Two more outputs for "why this score", so scoring explains a row with the very graph that
     predicts it: ``linear_predictor`` [N, B] (the eta above) and ``contributions`` [N, B, 1 + T],
     intercept then each term of :func:`breakdown.term_groups`, summed over the term's columns
@@ -196,14 +196,22 @@ def _explain_outputs(g: _GraphBuilder, eq: EquationFit, design: str, eta: str) -
     ones = g.op("ConstantOfShape", [g.op("Concat", [n, g.const([1], np.int64)], axis=0)],
                 value=numpy_helper.from_array(np.array([1.0], dtype=np.float64)))
     full = g.op("Concat", [ones, design], axis=1)                                   # [N, 1 + p]
-    coef = np.asarray(eq.coef, dtype=np.float64).reshape(1 + len(eq.columns), -1)   # [1 + p, B]
+    coef = np.asarray(coef, dtype=np.float64).reshape(design_width(eq) + 1, -1)      # [1 + p, B]
+    groups = grouping_matrix(eq)
+    if groups.shape[1] < coef.shape[0]:   # intercept only: the graph's zero column belongs to no term
+        groups = np.hstack([groups, np.zeros((groups.shape[0], coef.shape[0] - groups.shape[1]))])
     products = g.op("Mul", [g.op("Unsqueeze", [full, g.const([2], np.int64)]), g.const(coef)])
     by_block = g.op("Transpose", [products], perm=[0, 2, 1])                        # [N, B, 1 + p]
-    g.nodes.append(helper.make_node("MatMul", [by_block, g.const(grouping_matrix(eq).T)], ["contributions"]))
+    g.nodes.append(helper.make_node("MatMul", [by_block, g.const(groups.T)], ["contributions"]))
     g.nodes.append(helper.make_node("Identity", [eta], ["linear_predictor"]))
-    blocks, terms = coef.shape[1], grouping_matrix(eq).shape[0]
+    blocks, terms = coef.shape[1], groups.shape[0]
     return [helper.make_tensor_value_info("linear_predictor", TensorProto.DOUBLE, [None, blocks]),
             helper.make_tensor_value_info("contributions", TensorProto.DOUBLE, [None, blocks, terms])]
+
+
+def design_width(eq: EquationFit) -> int:
+    """Columns of the graph's design: the equation's, or one zero column for an intercept only."""
+    return max(1, len(eq.columns))
 
 
 def equation_model(eq: EquationFit, features: list[Feature], metadata: dict) -> onnx.ModelProto:
@@ -218,7 +226,7 @@ def equation_model(eq: EquationFit, features: list[Feature], metadata: dict) -> 
     design = g.op("Concat", cols, axis=1) if len(cols) > 1 else cols[0]
     weights = coef[1:].reshape(len(cols), -1)
     eta = g.op("Add", [g.op("MatMul", [design, g.const(weights)]), g.const(coef[0].reshape(1, -1))])
-    explain = _explain_outputs(g, eq, design, eta)
+    explain = _explain_outputs(g, eq, design, eta, coef)
     outputs = []
     if eq.task == "regression":
         # double output: a prediction beyond float32's range (an input of 1e30 in a squared term)

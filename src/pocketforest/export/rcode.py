@@ -109,8 +109,10 @@ _HELPERS = r'''  .MISSING_TEXT <- c("", "NA", "N/A", "NaN", "nan", "null", "NULL
   # 1 / sum(exp(e_j - e_k)) so large scores do not overflow.
   .probabilities <- function(eta) {
     e <- cbind(0, eta)
-    p <- sapply(seq_len(ncol(e)), function(k) 1 / rowSums(exp(e - e[, k])))
-    matrix(p, nrow = nrow(e))
+    p <- matrix(sapply(seq_len(ncol(e)), function(k) 1 / rowSums(exp(e - e[, k]))), nrow = nrow(e))
+    # a score that is not finite is a missing prediction, as in every other form
+    p[!apply(is.finite(e), 1, all), ] <- NA
+    p
   }
 
   .result <- function(p) {
@@ -216,7 +218,9 @@ def equation_r(eq, meta: dict) -> str:
               "  predict <- function(data) {",
               "    eta <- design(data) %*% COEFFICIENTS"]
     if eq.task == "regression":
-        lines.append("    drop(eta)" if eq.link == "identity" else "    exp(drop(eta))")
+        # a value that is not finite is a missing prediction, as in every other form
+        value = "drop(eta)" if eq.link == "identity" else "exp(drop(eta))"
+        lines.append(f"    v <- {value}; v[!is.finite(v)] <- NA; v")
     else:
         lines.append("    .result(.probabilities(eta))")
     lines += ["  }", "",
