@@ -352,3 +352,21 @@ def test_intercept_only_equation_in_every_form(task, k, tmp_path):
     for form, res in _code_outputs(eq, table, rows, tmp_path, collaborators=False).items():
         key = "prediction" if task == "regression" else "probabilities"
         np.testing.assert_allclose(res[key], want, rtol=1e-12, atol=1e-12, err_msg=form)
+
+
+def test_one_column_table_with_missing_numbers_in_every_form(tmp_path):
+    """A bundle with one input column: the rows handed to R are a one-column CSV, where an empty
+    field is written quoted and R refused it as a number (found by tests/test_fuzz.py)."""
+    rng = np.random.default_rng(4)
+    df = pd.DataFrame({"dose": rng.uniform(0, 2, 200)})
+    df["y"] = 3 * df["dose"] + rng.normal(0, 0.2, 200)
+    table = prepare(df, "y", source="one.csv")
+    fills = {"dose": float(np.median(df["dose"]))}
+    eq = fit_equation([Term("linear", ["dose"])], table.data, table.data["y"].to_numpy(dtype=float),
+                      task="regression", target="y", fills=fills, kinds={"dose": "numeric"}, classes=None,
+                      fit_on="all")
+    rows = pd.DataFrame({"dose": [0.5, np.nan, 1.5, np.nan]})
+    want = eq.predict(rows)
+    for form, res in _code_outputs(eq, table, rows, tmp_path).items():
+        # double precision in every form: summation order only
+        np.testing.assert_allclose(res["prediction"], want, rtol=1e-12, atol=1e-12, err_msg=form)

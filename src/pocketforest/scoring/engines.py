@@ -27,7 +27,7 @@ _R_RUNNER = r'''
 # Scores pocketforest R exports: run_exports.R ROWS.csv TYPES.txt EXPORT.R OUT.csv [EXPORT.R OUT.csv ...]
 args <- commandArgs(trailingOnly = TRUE)
 types <- readLines(args[2], encoding = "UTF-8")
-rows <- read.csv(args[1], colClasses = types, check.names = FALSE, na.strings = "",
+rows <- read.csv(args[1], colClasses = types, check.names = FALSE, na.strings = c("", "NA"),
                  encoding = "UTF-8", fileEncoding = "UTF-8", stringsAsFactors = FALSE)
 for (i in seq(3, length(args), by = 2)) {
   env <- new.env()
@@ -60,9 +60,11 @@ def _run(cmd: list[str], cwd: Path, label: str, env: dict | None = None) -> subp
 
 def _frame_csv(frame: pd.DataFrame, features: list[dict], path: Path) -> None:
     """Feature columns as CSV for R: numbers in hexadecimal (R reads those bit for bit, decimals not
-    always: see :func:`export.rcode.r_exact`), missing as an empty field."""
+    always: see :func:`export.rcode.r_exact`), a missing number as NA and a missing category as an
+    empty field. (An empty number field would be written quoted, ``""``, when the file has one
+    column, and R's scan refuses ``""`` as a number: found by tests/test_fuzz.py.)"""
     def number(v: float) -> str:
-        return "" if np.isnan(v) else float(v).hex()
+        return "NA" if np.isnan(v) else float(v).hex()
     out = pd.DataFrame({f["name"]: ([number(v) for v in pd.to_numeric(frame[f["name"]], errors="coerce").to_numpy(dtype=float)]
                                     if f["kind"] == "numeric" else frame[f["name"]].fillna("").astype(str))
                         for f in features})

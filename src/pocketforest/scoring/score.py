@@ -203,7 +203,7 @@ def score_file(bundle: str, data: str, model: str, out: str | None, keep: list[s
     check_keep(manifest, keep, data, why_names)
     files = input_files(str(data))
     stray = Stray(features)
-    tmp_path, sink, total = None, None, 0
+    tmp_path, sink, total, stream = None, None, 0, None
     try:
         if out is not None:
             fd, tmp_path = tempfile.mkstemp(prefix=".pf-score-", suffix=Path(out).suffix.lower(),
@@ -231,7 +231,8 @@ def score_file(bundle: str, data: str, model: str, out: str | None, keep: list[s
         started = False
         # chunks are typed and predicted on every core, one single-threaded session call each,
         # and written in input order (see runtime.session_options for why one thread per call)
-        for frame, own in ordered_stream(work, chunks(), threads):
+        stream = chunks()
+        for frame, own in ordered_stream(work, stream, threads):
             stray.merge(own.state())
             if out is None:
                 frame.to_csv(sys.stdout, index=False, header=not started, lineterminator="\n")
@@ -250,6 +251,8 @@ def score_file(bundle: str, data: str, model: str, out: str | None, keep: list[s
             os.replace(tmp_path, out)
             tmp_path = None
     finally:
+        if stream is not None:
+            stream.close()   # the input file is closed now, not when the generator is collected
         if sink is not None:
             sink.close()
         if tmp_path is not None and os.path.exists(tmp_path):
