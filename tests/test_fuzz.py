@@ -16,9 +16,10 @@ The commands run through the command line's own entry point (``pocketforest.cli.
 process, so each example costs a fit and a verify, not interpreter start-ups.
 
 Profiles (environment variable ``POCKETFOREST_FUZZ``): ``ci`` (default) — the same 25 examples on
-every run (derandomised, so CI never fails on a draw it has not seen before), a minute or two;
-``local`` — 300 fresh examples each run, with failures kept in ``.hypothesis/`` and shrunk to a
-small case, for a long run before a release:
+every run (derandomised, so CI never fails on a draw it has not seen before), verify without the
+engines that start a heavy program per bundle, a minute or two; ``local`` — 300 fresh examples
+each run, LibreOffice and Chromium included, with failures kept in ``.hypothesis/`` and shrunk to
+a small case, for a long run before a release (R and SPSS: see ``SKIPPED_ENGINES``):
 ``POCKETFOREST_FUZZ=local .venv/bin/python -m pytest tests/test_fuzz.py --hypothesis-show-statistics``.
 """
 from __future__ import annotations
@@ -45,7 +46,12 @@ settings.register_profile("ci", max_examples=25, deadline=None, derandomize=True
                           suppress_health_check=list(HealthCheck), print_blob=True)
 settings.register_profile("local", max_examples=300, deadline=None,
                           suppress_health_check=list(HealthCheck), print_blob=True)
-settings.load_profile(os.environ.get("POCKETFOREST_FUZZ", "ci"))
+PROFILE = os.environ.get("POCKETFOREST_FUZZ", "ci")
+settings.load_profile(PROFILE)
+#: verify's engines left out. R and SPSS syntax do not yet follow the other forms on rows whose
+#: prediction is missing (a known gap, in the session note); LibreOffice and Chromium start a heavy
+#: program per bundle (up to a minute per example here), so only the local profile runs them.
+SKIPPED_ENGINES = ("r", "pspp") + (("libreoffice", "chromium") if PROFILE == "ci" else ())
 
 # Letters a column name or a category may hold: quotes, spaces, separators, non-ASCII.
 ODD = list("abxyzAB019") + [" ", "'", '"', ",", ";", "-", "_", ".", "#", "(", ")", "é", "ß", "Ø", "中", "ж", "\\"]
@@ -220,9 +226,7 @@ def test_every_failure_is_one_error_line_and_every_bundle_verifies(t: Table):
             event("distill error: " + err.replace(str(data), "DATA").strip()[7:70])
             assert sorted(p.name for p in base.iterdir()) == [data.name], "distill left files behind"
             return
-        # R and SPSS syntax do not yet follow the other forms on rows whose prediction is missing
-        # (a known gap, in the session note); LibreOffice and Chromium are slow per example
-        code, report, err = _run("verify", str(out), "-q", "--skip", "r", "pspp", "libreoffice", "chromium")
+        code, report, err = _run("verify", str(out), "-q", "--skip", *SKIPPED_ENGINES)
         assert code == 0, f"the bundle does not verify:\n{report}\n{err}"
         manifest = json.loads((out / "manifest.json").read_text(encoding="utf-8"))
         task, classes = manifest["task"], manifest.get("classes") or []   # auto may differ from the draw
