@@ -354,19 +354,29 @@ def test_intercept_only_equation_in_every_form(task, k, tmp_path):
         np.testing.assert_allclose(res[key], want, rtol=1e-12, atol=1e-12, err_msg=form)
 
 
-def test_one_column_table_with_missing_numbers_in_every_form(tmp_path):
+@pytest.mark.parametrize("kind", ["numeric", "categorical"])
+def test_one_column_table_with_missing_values_in_every_form(kind, tmp_path):
     """A bundle with one input column: the rows handed to R are a one-column CSV, where an empty
-    field is written quoted and R refused it as a number (found by tests/test_fuzz.py)."""
+    field is written quoted; R refused it as a number and skipped it as a blank line for a
+    category (both found by tests/test_fuzz.py)."""
     rng = np.random.default_rng(4)
-    df = pd.DataFrame({"dose": rng.uniform(0, 2, 200)})
-    df["y"] = 3 * df["dose"] + rng.normal(0, 0.2, 200)
+    if kind == "numeric":
+        df = pd.DataFrame({"dose": rng.uniform(0, 2, 200)})
+        df["y"] = 3 * df["dose"] + rng.normal(0, 0.2, 200)
+        term, fills, rows = Term("linear", ["dose"]), {"dose": float(np.median(df["dose"]))}, \
+            pd.DataFrame({"dose": [0.5, np.nan, 1.5, np.nan]})
+    else:
+        df = pd.DataFrame({"dose": rng.choice(["low", "high"], 200)})
+        df.loc[::7, "dose"] = np.nan
+        df["y"] = np.where(df["dose"] == "high", 2.0, 0.0) + rng.normal(0, 0.2, 200)
+        term, fills, rows = Term("categorical", ["dose"]), {"dose": ""}, \
+            pd.DataFrame({"dose": ["low", "", "high", "", ""]})
     table = prepare(df, "y", source="one.csv")
-    fills = {"dose": float(np.median(df["dose"]))}
-    eq = fit_equation([Term("linear", ["dose"])], table.data, table.data["y"].to_numpy(dtype=float),
-                      task="regression", target="y", fills=fills, kinds={"dose": "numeric"}, classes=None,
-                      fit_on="all")
-    rows = pd.DataFrame({"dose": [0.5, np.nan, 1.5, np.nan]})
+    eq = fit_equation([term], table.data, table.data["y"].to_numpy(dtype=float), task="regression", target="y",
+                      fills=fills, kinds={"dose": kind}, classes=None, fit_on="all")
     want = eq.predict(rows)
-    for form, res in _code_outputs(eq, table, rows, tmp_path).items():
+    outs = _code_outputs(eq, table, rows, tmp_path)
+    assert "R" in outs or not HAVE_R
+    for form, res in outs.items():
         # double precision in every form: summation order only
         np.testing.assert_allclose(res["prediction"], want, rtol=1e-12, atol=1e-12, err_msg=form)

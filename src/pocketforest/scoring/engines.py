@@ -27,7 +27,7 @@ _R_RUNNER = r'''
 # Scores pocketforest R exports: run_exports.R ROWS.csv TYPES.txt EXPORT.R OUT.csv [EXPORT.R OUT.csv ...]
 args <- commandArgs(trailingOnly = TRUE)
 types <- readLines(args[2], encoding = "UTF-8")
-rows <- read.csv(args[1], colClasses = types, check.names = FALSE, na.strings = c("", "NA"),
+rows <- read.csv(args[1], colClasses = types, check.names = FALSE, na.strings = c("", "NA"), blank.lines.skip = FALSE,
                  encoding = "UTF-8", fileEncoding = "UTF-8", stringsAsFactors = FALSE)
 for (i in seq(3, length(args), by = 2)) {
   env <- new.env()
