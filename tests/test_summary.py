@@ -148,3 +148,7 @@ def test_result_repr_is_one_short_line(fitted, task):
     key = r.loss["tree"]["metric"]
     assert "\n" not in line and len(line) < 160 and line.startswith("<Distillation ")
     assert f"equation {r.evaluation['equation'][key]:.3f}" in line
+    # the result object itself: repr is that line, summary() the text
+    assert repr(r) == line
+    from pocketforest.summary import result_text
+    assert r.summary() == result_text(r)

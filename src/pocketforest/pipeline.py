@@ -106,6 +106,15 @@ class Distillation:
         pipe = self.tree.pipeline
         return pipe.predict(X) if self.table.task == "regression" else pipe.predict_proba(X)
 
+    def summary(self) -> str:
+        """The scoreboard, the formula and the coefficient table as text (like a statsmodels summary)."""
+        from .summary import result_text
+        return result_text(self)
+
+    def __repr__(self) -> str:  # one short line, not the dataclass dump
+        from .summary import result_line
+        return result_line(self)
+
     def write(self, out: str, *, force: bool = False) -> str:
         from .bundle import write_bundle
         return write_bundle(self, out, force=force)
