@@ -272,3 +272,26 @@ def test_noise_and_a_correlated_stand_in_stay_out():
     assert any("u (|Spearman|" in n and "with x, which stays" in n for n in r.discovery.notes), r.discovery.notes
     # How often pure noise (v, w) enters is a rate, measured over many data sets by the benchmark's
     # power section (python -m pocketforest.bench --only power), not by one seed here.
+
+
+def test_a_crossover_the_forest_cannot_see_is_found_by_the_glm():
+    """Invented: the outcome moves by ±0.25 in a 2 × 2 crossover of k1 and k2 (neither has a main
+    effect) beside two strong slopes and six noise columns. A greedy tree finds no first split on
+    either category, so the forest's importance calls both immaterial; the discovery-row GLM tries
+    every category × category pair itself (searched_by) and keeps the cell with both main effects."""
+    rng = np.random.default_rng(0)
+    n = 3000
+    k1, k2 = rng.choice(["a", "b"], n), rng.choice(["u", "v"], n)
+    noise = {f"n{i}": rng.normal(size=n) for i in range(6)}
+    x, z = rng.normal(size=n), rng.normal(size=n)
+    cell = np.where((k1 == "a") == (k2 == "u"), 0.25, -0.25)
+    df = pd.DataFrame({"k1": k1, "k2": k2, "x": x, "z": z, **noise, "y": 2 * x + 2 * z + cell + rng.normal(size=n)})
+    r = _distill(df, trees=60)
+    mat = r.discovery.materiality["variables"]
+    assert mat["k1"]["decision"] == mat["k2"]["decision"] == "not material"    # the forest misses it
+    prods = [t for t in r.equation.terms if t.kind == "interaction" and set(t.variables) == {"k1", "k2"}]
+    assert prods, r.equation.formula
+    assert {"k1", "k2"} <= set(r.discovery.main_variables)                       # hierarchy
+    rec = next(rec for rec in r.discovery.interactions if set(rec["variables"]) == {"k1", "k2"})
+    assert rec["kept"] and rec["searched_by"] == "discovery-row GLM" and rec["h2"] is None
+    assert not {f"n{i}" for i in range(6)} & {v for t in r.equation.terms for v in t.variables}

@@ -9,7 +9,8 @@ Four steps, each on the discovery rows only, each owned by its module and readin
 3. interactions — every pair of leading material variables, of every kind, described by
    Friedman & Popescu's H² (:mod:`.interactions`);
 4. selection — main effects first, then bends and products that lower the extended BIC of the
-   discovery-row GLM within the estimation rows' coefficient budget (:mod:`.select`).
+   discovery-row GLM within the estimation rows' coefficient budget; category × category pairs the
+   forest cannot see (crossovers) are tried here by the GLM itself (:mod:`.select`).
 """
 from __future__ import annotations
 
@@ -80,6 +81,7 @@ def discover(forest: ForestFit, features: list[Feature], task: str, disc: pd.Dat
     weak = {v for v in material if not mat.evidence[v].strong and not mat.evidence[v].requested}
     sel = select_terms(ctx, material, requested, shapes, pairs, [i.feature for i in importance], weak)
     terms = sel.terms
+    pairs = pairs + sel.screened_pairs
     chosen_pairs = {frozenset(t.variables) for t in terms if t.kind == "interaction"}
     for rec in pairs:
         rec["kept"] = frozenset(rec["variables"]) in chosen_pairs

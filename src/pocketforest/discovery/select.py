@@ -44,6 +44,10 @@ class Candidate:
     terms: list[Term]
     pool: str                                            # "main", "bend" or "pair": its extended-BIC family
     conflicts: frozenset[str] = field(default_factory=frozenset)   # at most one chosen per key
+    #: Variables whose main effect the candidate needs (hierarchy) and brings in with it when the
+    #: model lacks it: a category × category pattern with no margins (its cells cancel along both
+    #: categories) has no main effect to enter first.
+    brings: tuple[str, ...] = ()
 
 
 def _columns(terms: list[Term], data: pd.DataFrame, fills: dict, kinds: dict) -> np.ndarray:
@@ -151,6 +155,8 @@ class Selection:
     rows: int
     not_chosen: list[str]
     removed_main_effects: list[str]
+    #: Pairs tried by the GLM alone (not measured by H²), recorded with the searched pairs.
+    screened_pairs: list[dict] = field(default_factory=list)
 
     def to_dict(self) -> dict:
         return {"rows": self.rows, "steps": self.log, "not_chosen": self.not_chosen,
@@ -184,9 +190,35 @@ def select_terms(ctx: Context, material: list[str], requested: set[str], shapes:
         order, others = order + others, []
     base = [Term("linear" if kinds[v] == "numeric" else "categorical", [v], evidence={"reason": "main effect"})
             for v in order]
+    cell_pairs = _unsearched_category_pairs(ctx, order, others, pairs)
+    screened = [{"variables": [a, b], "kind": "categorical×categorical", "h2": None, "strength": None,
+                 "rows": len(rows), "kept": False, "searched_by": "discovery-row GLM"} for a, b in cell_pairs]
     candidates = (_main_candidates(ctx, others) + _bend_candidates(ctx, [v for v in order if v in material], shapes)
-                  + _pair_candidates(ctx, order, pairs))
-    return _forward_backward(ctx, base, candidates, data, y, requested, len(rows), weak)
+                  + _pair_candidates(ctx, order, pairs) + _pair_candidates(ctx, order + others, screened, bring=True))
+    sel = _forward_backward(ctx, base, candidates, data, y, requested, len(rows), weak)
+    sel.screened_pairs = screened
+    return sel
+
+
+def _unsearched_category_pairs(ctx: Context, order: list[str], others: list[str], pairs: list[dict]) -> list[tuple[str, str]]:
+    """Category × category pairs the H² search did not measure, to be tried by the GLM directly.
+
+    A pattern such as a crossover (the cells cancel along both categories) gives neither category
+    a main effect, and a greedy tree finds no first split on either, so the forest's importance
+    and H² can miss it at any size. The GLM on all discovery rows sees it with power that grows
+    with the rows; the extended BIC counts these candidates in the pair family.
+    """
+    kinds = ctx.kinds
+    cats = [v for v in order + others if kinds[v] == "categorical"]
+    measured = {frozenset(rec["variables"]) for rec in pairs}
+    out = []
+    for i, a in enumerate(cats):
+        for b in cats[i + 1:]:
+            if frozenset((a, b)) in measured:
+                continue
+            if len(_levels(ctx.frame, a)) * len(_levels(ctx.frame, b)) <= MAX_CELLS:
+                out.append((a, b))
+    return out
 
 
 def _main_candidates(ctx: Context, variables: list[str]) -> list[Candidate]:
@@ -227,8 +259,9 @@ def _bend_candidates(ctx: Context, order: list[str], shapes: dict) -> list[Candi
     return out
 
 
-def _pair_candidates(ctx: Context, order: list[str], pairs: list[dict]) -> list[Candidate]:
-    """Products for every searched pair whose variables keep their main effects (hierarchy)."""
+def _pair_candidates(ctx: Context, order: list[str], pairs: list[dict], bring: bool = False) -> list[Candidate]:
+    """Products for every searched pair whose variables keep their main effects (hierarchy);
+    with ``bring``, a pair whose main effects are not in the model brings them in with it."""
     kinds, fills = ctx.kinds, ctx.fills
     out = []
     for rec in pairs:
@@ -236,7 +269,10 @@ def _pair_candidates(ctx: Context, order: list[str], pairs: list[dict]) -> list[
         if not {a, b} <= set(order):
             continue
         ev = {"reason": "interaction", "h2": rec["h2"], "strength": rec["strength"]}
+        if rec.get("searched_by"):
+            ev["searched_by"] = rec["searched_by"]
         group = frozenset({f"pair:{a}*{b}"})
+        brings = (a, b) if bring else ()
         if kinds[a] == kinds[b] == "numeric":
             centres = {v: round(float(pd.to_numeric(ctx.frame[v], errors="coerce").fillna(fills[v]).mean()), 6)
                        for v in (a, b)}
@@ -257,7 +293,7 @@ def _pair_candidates(ctx: Context, order: list[str], pairs: list[dict]) -> list[
         # A number times a category's indicators is left uncentred: with both main effects in the
         # model centring changes nothing fitted, and the plain product keeps treatment coding.
         out.append(Candidate(f"product:{a}*{b}", [Term("interaction", [a, b], {"centres": {}, "power": 1}, ev)],
-                             "pair", group))
+                             "pair", group, brings))
         cats = [v for v in (a, b) if kinds[v] == "categorical"]
         levels = {v: _levels(ctx.frame, v) for v in cats}
         if len(cats) == 1:
@@ -266,14 +302,14 @@ def _pair_candidates(ctx: Context, order: list[str], pairs: list[dict]) -> list[
                 out.append(Candidate(f"product:{a}*{b}[{lv}]",
                                      [Term("interaction", [a, b], {"centres": {}, "power": 1,
                                                                    "subset": {cats[0]: [lv]}}, dict(ev))],
-                                     "pair", group))
+                                     "pair", group, brings))
         elif len(levels[a]) * len(levels[b]) <= MAX_CELLS:
             for la in levels[a]:
                 for lb in levels[b]:
                     out.append(Candidate(f"product:{a}*{b}[{la},{lb}]",
                                          [Term("interaction", [a, b], {"centres": {}, "power": 1,
                                                                        "subset": {a: [la], b: [lb]}}, dict(ev))],
-                                         "pair", group))
+                                         "pair", group, brings))
     return out
 
 
@@ -296,14 +332,27 @@ def _forward_backward(ctx: Context, base: list[Term], candidates: list[Candidate
     cols = {c.key: _columns(c.terms, data, fills, kinds) for c in candidates}
     budget = ctx.requests.budget
     max_terms = ctx.requests.max_terms
+    by_key = {c.key: c for c in candidates}
 
     def design(mains: list[int], chosen: list[str]) -> np.ndarray:
         blocks = [base_cols[i] for i in mains] + [cols[k] for k in chosen]
         return np.column_stack(blocks) if blocks else np.empty((len(y), 0))
 
+    def present(mains: list[int], chosen: list[str]) -> set[str]:
+        """Variables whose main effect is in the model (base or entered as a candidate)."""
+        return ({base[i].variables[0] for i in mains}
+                | {k.split(":", 1)[1] for k in chosen if by_key[k].pool == "main"})
+
+    def missing(c: Candidate, have: set[str]) -> list[str]:
+        """Main-effect candidates ``c`` brings in with it (hierarchy)."""
+        return [f"main effect:{v}" for v in c.brings if v not in have]
+
+    def with_mains(c: Candidate, have: set[str]) -> np.ndarray:
+        extra_cols = [cols[k] for k in missing(c, have)]
+        return np.column_stack([cols[c.key], *extra_cols]) if extra_cols else cols[c.key]
+
     def penalised(mains: list[int], chosen: list[str]) -> float:
-        by = {c.key: c for c in candidates}
-        return (crit(design(mains, chosen)) + sum(extra[by[k].pool] for k in chosen)
+        return (crit(design(mains, chosen)) + sum(extra[by_key[k].pool] for k in chosen)
                 + extra["main"] * sum(i in weak_base for i in mains))
 
     mains = list(range(len(base)))
@@ -311,28 +360,33 @@ def _forward_backward(ctx: Context, base: list[Term], candidates: list[Candidate
     score = penalised(mains, chosen)
     log = [{"step": 0, "added": "main effects", "criterion": float(score)}]
     gains: dict[str, float] = {}
-    by_key = {c.key: c for c in candidates}
     while True:
         width = design(mains, chosen).shape[1]
         n_terms = len(mains) + sum(len(by_key[k].terms) for k in chosen)
         taken = set().union(*(by_key[k].conflicts for k in chosen)) if chosen else set()
+        have = present(mains, chosen)
         best, best_score = None, score
+        blocks = {c.key: with_mains(c, have) for c in candidates if c.key not in chosen}
         open_ = [c for c in candidates
                  if c.key not in chosen and not (c.conflicts & taken)
-                 and (budget is None or width + cols[c.key].shape[1] <= budget)
-                 and (max_terms is None or n_terms + len(c.terms) <= max_terms)]
+                 and (budget is None or width + blocks[c.key].shape[1] <= budget)
+                 and (max_terms is None or n_terms + len(c.terms) + len(missing(c, have)) <= max_terms)]
         current = design(mains, chosen)
         fixed = sum(extra[by_key[k].pool] for k in chosen) + extra["main"] * sum(i in weak_base for i in mains)
-        for c, value in zip(open_, crit.extended(current, [cols[c.key] for c in open_])):
-            s = value + fixed + extra[c.pool]
+        for c, value in zip(open_, crit.extended(current, [blocks[c.key] for c in open_])):
+            s = value + fixed + extra[c.pool] + extra["main"] * len(missing(c, have))
             if s < best_score - 1e-9:
                 best, best_score = c, s
         if best is None:
             break
+        brought = missing(best, have)
+        for k in brought:
+            by_key[k].terms[0].evidence["reason"] = f"main effect (brought in by {best.key}: hierarchy)"
         gains[best.key] = float(score - best_score)
-        chosen.append(best.key)
+        chosen.extend(brought + [best.key])
         score = best_score
-        log.append({"step": len(log), "added": best.key, "criterion": float(score), "drop": gains[best.key]})
+        log.append({"step": len(log), "added": best.key, "criterion": float(score), "drop": gains[best.key],
+                    **({"with_main_effects": [k.split(":", 1)[1] for k in brought]} if brought else {})})
     # Backward: a candidate chosen early may be made redundant by a later one, and a main effect
     # may add nothing once the forest's terms are in (a correlated proxy, say).
     removed_mains: list[str] = []
@@ -346,8 +400,10 @@ def _forward_backward(ctx: Context, base: list[Term], candidates: list[Candidate
         for what, item in options:
             m2 = [i for i in mains if not (what == "main" and i == item)]
             c2 = [k for k in chosen if not (what == "term" and k == item)]
-            if what == "term" and any(v not in {base[i].variables[0] for i in m2}
-                                      for k in c2 for t in by_key[k].terms for v in t.variables):
+            # hierarchy: every bend and product keeps the main effects of its variables
+            have = present(m2, c2)
+            if any(v not in have for k in c2 if by_key[k].pool != "main"
+                   for t in by_key[k].terms for v in t.variables):
                 continue
             s = penalised(m2, c2)
             if s < score - 1e-9:
