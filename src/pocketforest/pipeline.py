@@ -188,7 +188,7 @@ def _fit_models(table: Table, s: Settings, fractions: tuple[float, float, float]
     _say(s, "looking for bends and interactions")
     requests = Requests(seed=s.seed, quiet=s.quiet, max_terms=s.max_terms, keep=tuple(s.keep_vars),
                         drop=tuple(s.drop_vars), min_samples_leaf=s.min_samples_leaf,
-                        budget=budget if s.cap_terms else None, estimation_rows=len(conf))
+                        budget=budget if s.cap_terms else None, estimation_rows=len(conf), family=family)
     discovery = discover(forest, table.features, task, disc, y_d, importance, increases, fills, requests)
     clock.lap("discovery")
 

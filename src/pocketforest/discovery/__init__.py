@@ -87,7 +87,8 @@ def discover(forest: ForestFit, features: list[Feature], task: str, disc: pd.Dat
         rec["kept"] = frozenset(rec["variables"]) in chosen_pairs
     rows = np.sort(ctx.rng(29).permutation(len(disc))[:sel.rows])
     worth = drop_one(terms, disc.iloc[rows].reset_index(drop=True), np.asarray(y)[rows], task=task,
-                     classes=forest.classes, fills=fills, kinds=kinds)
+                     classes=forest.classes, fills=fills, kinds=kinds,
+                     family=requests.family)
     for t, w in zip(terms, worth):
         t.evidence["bic_increase_if_removed"] = w
         if t.kind in ("linear", "categorical"):

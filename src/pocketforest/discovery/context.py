@@ -43,6 +43,9 @@ class Requests:
     budget: int | None = None
     #: Rows that will estimate the exported equation: decides whether two hinges may be offered.
     estimation_rows: int | None = None
+    #: The equation's GLM family (gaussian, poisson, negative_binomial, binomial, multinomial): the
+    #: discovery-row selection judges terms with the same likelihood the equation will be fitted by.
+    family: str | None = None
 
 
 @dataclass

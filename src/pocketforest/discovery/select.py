@@ -58,21 +58,63 @@ def _columns(terms: list[Term], data: pd.DataFrame, fills: dict, kinds: dict) ->
     return np.column_stack([evaluate(c.node, data) for c in cols])
 
 
-class Criterion:
-    """BIC of the GLM with the given design columns (Gaussian or multinomial/binomial logit)."""
+COUNT_FAMILIES = ("poisson", "negative_binomial")
 
-    def __init__(self, y: np.ndarray, task: str, classes: list[str] | None):
+
+class Criterion:
+    """BIC of the GLM with the given design columns: Gaussian, multinomial/binomial logit, or, for
+    count outcomes, Poisson on the quasi-likelihood scale.
+
+    Counts: least squares on a skewed count lets its long tail swamp real effects (on a 5,000-row
+    sample of the RAND health insurance data it removed three variables the forest rated 9–11
+    standard errors above zero), so the count equation's terms are judged by the Poisson
+    log-likelihood divided by the dispersion ĉ of the main-effects model (Pearson χ² / residual
+    df) — the quasi-likelihood information criterion with BIC's penalty (the ĉ device of
+    Burnham & Anderson 2002, Model Selection and Multimodel Inference, 2nd ed., §2.5), which
+    keeps overdispersed counts from letting noise in.
+    """
+
+    def __init__(self, y: np.ndarray, task: str, classes: list[str] | None, family: str | None = None):
         self.task = task
         self.n = len(y)
+        self.count = task == "regression" and family in COUNT_FAMILIES
+        self.scale = 1.0
         if task == "regression":
             self.y = np.asarray(y, dtype=float)
         else:
             self.labels = np.searchsorted(np.asarray(classes, dtype=object), np.asarray(y, dtype=object))
             self.k = len(classes)
 
+    def set_scale(self, X: np.ndarray) -> None:
+        """Counts: fix ĉ from the reference (main-effects) model, so every comparison uses one scale."""
+        if not self.count:
+            return
+        D = self._with_intercept(X)
+        mu = self._poisson_mean(D)
+        pearson = float(np.sum((self.y - mu) ** 2 / mu))
+        self.scale = max(1.0, pearson / max(1, self.n - D.shape[1]))
+
+    def _with_intercept(self, X: np.ndarray) -> np.ndarray:
+        return np.column_stack([np.ones(self.n), X]) if X.size else np.ones((self.n, 1))
+
+    def _poisson_mean(self, D: np.ndarray) -> np.ndarray:
+        import warnings
+
+        import statsmodels.api as sm
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")     # near-collinear candidate columns: the fit is still the MLE
+            res = sm.GLM(self.y, D, family=sm.families.Poisson()).fit(maxiter=100)
+        return np.clip(np.asarray(res.fittedvalues, dtype=float), 1e-10, None)
+
+    def _poisson_deviance_like(self, mu: np.ndarray) -> float:
+        """−2 log-likelihood of the Poisson fit, without the constant Σ log y!."""
+        return float(-2.0 * np.sum(self.y * np.log(mu) - mu))
+
     def __call__(self, X: np.ndarray) -> float:
         n = self.n
         D = np.column_stack([np.ones(n), X]) if X.size else np.ones((n, 1))
+        if self.count:
+            return self._poisson_deviance_like(self._poisson_mean(D)) / self.scale + D.shape[1] * np.log(n)
         if self.task == "regression":
             coef, *_ = np.linalg.lstsq(D, self.y, rcond=None)
             rss = float(np.sum((self.y - D @ coef) ** 2))
@@ -99,6 +141,8 @@ class Criterion:
         """
         if self.task != "regression":
             return self._score_tests(X, blocks)
+        if self.count:
+            return self._count_score_tests(X, blocks)
         n = self.n
         D = np.column_stack([np.ones(n), X]) if X.size else np.ones((n, 1))
         Q, _ = np.linalg.qr(D)
@@ -114,6 +158,24 @@ class Criterion:
             out.append(n * np.log(rss / n) + (D.shape[1] + b.shape[1]) * np.log(n))
         return out
 
+
+    def _count_score_tests(self, X: np.ndarray, blocks: list[np.ndarray]) -> list[float]:
+        """Poisson (log link) Rao score statistic of each block from one fit of the current model:
+        U = Bᵀ(y − μ), information Bᵀ W B − Bᵀ W D (Dᵀ W D)⁻¹ Dᵀ W B with W = μ; divided by ĉ."""
+        D = self._with_intercept(X)
+        mu = self._poisson_mean(D)
+        base = self._poisson_deviance_like(mu) / self.scale
+        WD = D * mu[:, None]
+        inv = np.linalg.pinv(D.T @ WD)
+        r = self.y - mu
+        out = []
+        for b in blocks:
+            U = b.T @ r
+            cross = WD.T @ b
+            info = (b * mu[:, None]).T @ b - cross.T @ inv @ cross
+            chi2 = float(U @ np.linalg.pinv(info) @ U) / self.scale
+            out.append(base - max(chi2, 0.0) + (D.shape[1] + b.shape[1]) * np.log(self.n))
+        return out
 
     def _score_tests(self, X: np.ndarray, blocks: list[np.ndarray]) -> list[float]:
         n, k = self.n, self.k
@@ -323,7 +385,7 @@ def _levels(frame: pd.DataFrame, var: str) -> list[str]:
 def _forward_backward(ctx: Context, base: list[Term], candidates: list[Candidate], data: pd.DataFrame,
                       y: np.ndarray, requested: set[str], n_rows: int, weak: set[str] = frozenset()) -> Selection:
     kinds, fills = ctx.kinds, ctx.fills
-    crit = Criterion(y, ctx.task, ctx.classes)
+    crit = Criterion(y, ctx.task, ctx.classes, ctx.requests.family)
     pools = {p: sum(c.pool == p for c in candidates) for p in ("main", "bend", "pair")}
     weak_base = {i for i, t in enumerate(base) if t.variables[0] in weak} if ctx.glm_checks_main_effects else set()
     pools["main"] += len(weak_base)
@@ -357,6 +419,7 @@ def _forward_backward(ctx: Context, base: list[Term], candidates: list[Candidate
 
     mains = list(range(len(base)))
     chosen: list[str] = []
+    crit.set_scale(design(mains, chosen))
     score = penalised(mains, chosen)
     log = [{"step": 0, "added": "main effects", "criterion": float(score)}]
     gains: dict[str, float] = {}
@@ -388,15 +451,15 @@ def _forward_backward(ctx: Context, base: list[Term], candidates: list[Candidate
         log.append({"step": len(log), "added": best.key, "criterion": float(score), "drop": gains[best.key],
                     **({"with_main_effects": [k.split(":", 1)[1] for k in brought]} if brought else {})})
     # Backward: a candidate chosen early may be made redundant by a later one, and a main effect
-    # may add nothing once the forest's terms are in (a correlated proxy, say).
+    # may add nothing once the forest's terms are in (a correlated proxy, say). The weakest
+    # removable term leaves first, one at a time (backward elimination).
     removed_mains: list[str] = []
-    changed = True
-    while changed:
-        changed = False
+    while True:
         needed = {v for k in chosen for t in by_key[k].terms for v in t.variables}
         options = [("term", k) for k in chosen] + [("main", i) for i in mains
                                                    if base[i].variables[0] not in needed | requested
                                                    and _removable(ctx)]
+        best = None
         for what, item in options:
             m2 = [i for i in mains if not (what == "main" and i == item)]
             c2 = [k for k in chosen if not (what == "term" and k == item)]
@@ -406,14 +469,18 @@ def _forward_backward(ctx: Context, base: list[Term], candidates: list[Candidate
                    for t in by_key[k].terms for v in t.variables):
                 continue
             s = penalised(m2, c2)
-            if s < score - 1e-9:
-                name = item if what == "term" else f"main effect:{base[item].variables[0]}"
-                log.append({"step": len(log), "removed": name, "criterion": float(s), "drop": float(score - s)})
-                if what == "main":
-                    removed_mains.append(base[item].variables[0])
-                gains.pop(item if what == "term" else "", None)
-                mains, chosen, score, changed = m2, c2, s, True
-                break
+            margin = s - score
+            if margin < -1e-9 and (best is None or margin < best[0]):
+                best = (margin, what, item, m2, c2, s)
+        if best is None:
+            break
+        margin, what, item, m2, c2, s = best
+        name = item if what == "term" else f"main effect:{base[item].variables[0]}"
+        log.append({"step": len(log), "removed": name, "criterion": float(s), "drop": float(score - s)})
+        if what == "main":
+            removed_mains.append(base[item].variables[0])
+        gains.pop(item if what == "term" else "", None)
+        mains, chosen, score = m2, c2, s
     if not mains and not chosen and base:   # keep one slope: the strongest variable
         mains = [0]
         removed_mains = [v for v in removed_mains if v != base[0].variables[0]]
@@ -445,10 +512,11 @@ def removal_reason(ctx: Context, var: str, kept: list[str]) -> str:
 
 
 def drop_one(terms: list[Term], data: pd.DataFrame, y: np.ndarray, *, task: str, classes: list[str] | None,
-             fills: dict, kinds: dict) -> list[float]:
+             fills: dict, kinds: dict, family: str | None = None) -> list[float]:
     """BIC increase when each term alone is removed from the final model (its marginal worth)."""
-    crit = Criterion(y, task, classes)
+    crit = Criterion(y, task, classes, family)
     blocks = [_columns([t], data, fills, kinds) for t in terms]
+    crit.set_scale(np.column_stack(blocks) if blocks else np.empty((len(y), 0)))
     full = crit(np.column_stack(blocks)) if blocks else crit(np.empty((len(y), 0)))
     out = []
     for i in range(len(terms)):
