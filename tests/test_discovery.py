@@ -274,7 +274,7 @@ def test_noise_and_a_correlated_stand_in_stay_out():
     # power section (python -m pocketforest.bench --only power), not by one seed here.
 
 
-def test_a_crossover_the_forest_cannot_see_is_found_by_the_glm():
+def test_a_crossover_the_forest_cannot_see_is_found_by_the_glm(tmp_path):
     """Invented: the outcome moves by ±0.25 in a 2 × 2 crossover of k1 and k2 (neither has a main
     effect) beside two strong slopes and six noise columns. A greedy tree finds no first split on
     either category, so the forest's importance calls both immaterial; the discovery-row GLM tries
@@ -295,6 +295,8 @@ def test_a_crossover_the_forest_cannot_see_is_found_by_the_glm():
     rec = next(rec for rec in r.discovery.interactions if set(rec["variables"]) == {"k1", "k2"})
     assert rec["kept"] and rec["searched_by"] == "discovery-row GLM" and rec["h2"] is None
     assert not {f"n{i}" for i in range(6)} & {v for t in r.equation.terms for v in t.variables}
+    page = (Path(r.write(str(tmp_path / "b"))) / "report.html").read_text(encoding="utf-8")
+    assert "tried by the GLM alone" in page
 
 
 def test_count_criterion_is_poisson_on_the_quasi_likelihood_scale():

@@ -341,9 +341,14 @@ def _interactions(m: dict) -> str:
     rules = list(dict.fromkeys(it["threshold_rule"] for it in inter if it.get("threshold_rule")))
     if rules:
         about.append("Threshold: " + "; ".join(_e(rule) for rule in rules) + ".")
-    sizes = sorted({int(it["rows"]) for it in inter if it.get("rows") is not None})
+    sizes = sorted({int(it["rows"]) for it in inter if it.get("rows") is not None and not it.get("searched_by")})
     if sizes:
-        about.append("Measured on " + " or ".join(str(n) for n in sizes) + " discovery rows.")
+        about.append("H² measured on " + " or ".join(str(n) for n in sizes) + " discovery rows.")
+    glm_only = sorted({int(it["rows"]) for it in inter if it.get("searched_by") and it.get("rows") is not None})
+    if glm_only:
+        about.append("Pairs without an H² are category × category pairs the forest's importance did not single "
+                     "out, tried by the GLM alone on " + " or ".join(str(n) for n in glm_only) + " discovery rows "
+                     "(a crossover of two categories has no main effect, so the forest can miss it).")
     if products:
         about.append("Product R²: the share of a kept numeric pair's interaction surface that a centred "
                      "product of the two columns recovers.")
