@@ -299,31 +299,30 @@ def test_a_crossover_the_forest_cannot_see_is_found_by_the_glm(tmp_path):
     assert "tried by the GLM alone" in page
 
 
-def test_count_criterion_is_poisson_on_the_quasi_likelihood_scale():
+def test_count_criterion_is_a_negative_binomial_with_its_dispersion_fixed():
     """Constructed: counts with a log-linear mean. The count criterion's Rao score statistic for
     adding a column matches the likelihood-ratio drop from refitting (the two agree to first order
-    for a moderate effect: Rao 1948; compared at 10%, not tighter), and ĉ is near 1 for Poisson
-    counts and well above 1 for overdispersed (gamma–Poisson) counts with the same mean."""
+    for a moderate effect: Rao 1948; compared at 10%, not tighter), and the NB2 dispersion α fixed
+    from the main-effects model is near 0 for Poisson counts and near the truth, 0.5, for
+    gamma–Poisson counts with variance μ + μ²/2 (maximum likelihood on 4,000 rows: within 0.15)."""
     from pocketforest.discovery.select import Criterion
     rng = np.random.default_rng(5)
     n = 4000
     x, z = rng.normal(size=n), rng.normal(size=n)
     mu = np.exp(0.5 + 0.4 * x + 0.05 * z)
-    y = rng.poisson(mu).astype(float)
-    crit = Criterion(y, "regression", None, "poisson")
-    crit.set_scale(x[:, None])
-    assert 0.9 < crit.scale <= 1.1                       # Pearson χ²/df of a correct Poisson model
-    score_version = crit.extended(x[:, None], [z[:, None]])[0]
-    refit_version = crit(np.column_stack([x, z]))
-    # −2 log-likelihood (÷ ĉ) of each model: the criterion less its BIC charge of log n per coefficient
-    dev_x = crit(x[:, None]) - 2 * np.log(n)
-    lr_score, lr_refit = dev_x - (score_version - 3 * np.log(n)), dev_x - (refit_version - 3 * np.log(n))
-    assert lr_refit > 4.0                                 # the 0.05 slope is visible at 4,000 rows
-    assert abs(lr_score - lr_refit) <= 0.1 * lr_refit
     over = rng.poisson(mu * rng.gamma(2.0, 0.5, n)).astype(float)   # same mean, variance mu + mu²/2
-    crit2 = Criterion(over, "regression", None, "negative_binomial")
-    crit2.set_scale(x[:, None])
-    assert crit2.scale > 1.5
+    y = rng.poisson(mu).astype(float)
+    for counts, alpha in ((y, 0.0), (over, 0.5)):
+        crit = Criterion(counts, "regression", None, "poisson")
+        crit.set_dispersion(x[:, None])
+        assert abs(crit.alpha - alpha) <= (0.05 if alpha == 0 else 0.15), crit.alpha
+        score_version = crit.extended(x[:, None], [z[:, None]])[0]
+        refit_version = crit(np.column_stack([x, z]))
+        # −2 log-likelihood of each model: the criterion less its BIC charge of log n per coefficient
+        dev_x = crit(x[:, None]) - 2 * np.log(n)
+        lr_score, lr_refit = dev_x - (score_version - 3 * np.log(n)), dev_x - (refit_version - 3 * np.log(n))
+        assert lr_refit > 4.0                             # the 0.05 slope is visible at 4,000 rows
+        assert abs(lr_score - lr_refit) <= 0.1 * lr_refit
     gaussian = Criterion(y, "regression", None, "gaussian")
-    gaussian.set_scale(x[:, None])
-    assert gaussian.scale == 1.0 and not gaussian.count
+    gaussian.set_dispersion(x[:, None])
+    assert gaussian.alpha == 0.0 and not gaussian.count
