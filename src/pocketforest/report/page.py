@@ -335,7 +335,7 @@ def _interactions(m: dict) -> str:
     inter = [i for i in (m.get("interactions") or []) if len(i.get("variables", [])) == 2]
     if not inter:
         return _absent("The discovery step measured no pair of variables in this bundle, so there is "
-                       "no interaction matrix; the equation holds main effects only.")
+                       "no interaction matrix" + ("." if equation_absent(m) else "; the equation holds main effects only."))
     fig = plots.interaction_plot(inter)
     products = any("product" in it for it in inter)
     figures = [(k, label) for k, label in _PAIR_COLUMNS if any(k in it for it in inter)]
