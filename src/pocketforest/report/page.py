@@ -507,7 +507,7 @@ def _tree_size(r, m: dict) -> str:
     show = set(_FRONTIER_ROWS) | {t["leaves"]} | ({chosen["cap"]} if chosen.get("cap") else set())
     head = ["leaves", "depth", f"{names[key]}, confirmation"] + ([f"{names.get(k, k)}, {where}" for k in keys] if held else [])
     rows = [[row["leaves"], row["depth"], row["confirmation"][key]]
-            + ([row["held_out"].get(k) for k in keys] if held and row.get("held_out") else [])
+            + ([(row.get("held_out") or {}).get(k) for k in keys] if held else [])   # "–" where no fold grew that size
             + (["← chosen"] if row["leaves"] == t["leaves"] else [""])
             for row in frontier if row["leaves"] in show]
     head.append("")
