@@ -156,6 +156,7 @@ def test_summary_and_report_say_why_and_rows_needed(two_bundles):
     assert not any(line.startswith("equation ") for line in stdout.splitlines())   # no scoreboard row
     report = (two_bundles["below"] / "report.html").read_text()
     assert "There is no equation in this bundle." in report and "<b>72 rows</b>" in report
+    assert "could not be drawn" not in report   # every section, the tree's frontier of a small table too
 
 
 # ---------------------------------------------------------------- the Python API
