@@ -180,3 +180,22 @@ def test_api_result_without_equation(two_bundles):
         bundle.predict(df, model="equation")
     why = bundle.explain(df.drop(columns="y"))   # both surrogates asked for: the tree's reasons alone
     assert list(why.columns) == ["tree_leaf", "tree_path"]
+
+
+def test_three_classes_count_four_parameters():
+    """Three classes, 45 rows, the rarest with 8: 4 of them in confirmation, under 12 = 3 x (2
+    intercepts + 2 slopes). The run still ends with the forest and the tree judged by
+    cross-validation, and no equation figures anywhere."""
+    from pocketforest.intake import prepare
+    from pocketforest.pipeline import Settings, distill
+    rng = np.random.default_rng(11)
+    x = rng.uniform(-1, 1, 45)
+    y = np.where(np.argsort(np.argsort(x)) < 8, "low", np.where(rng.uniform(size=45) < 0.5, "mid", "high"))
+    df = pd.DataFrame({"x": x, "z": rng.normal(size=45), "y": y})
+    result = distill(prepare(df, "y", source="three.csv"), Settings(trees=10, seed=1, quiet=True, bootstrap=50))
+    d = result.no_equation
+    assert result.equation is None and (d.rarest, d.parameters, d.need, d.have) == ("low", 4, 12, 4)
+    # 12 rarest-class confirmation rows at a share of 8/45 and half the rows in confirmation: 135
+    assert d.rows_needed == 135
+    assert result.evaluation["on"] == "cross-validation" and "equation" not in result.evaluation
+    assert "equation" not in result.evaluation["apparent"] and set(result.loss) == {"tree"}

@@ -24,7 +24,10 @@ count the rarer outcome; Riley et al. 2020 state their criteria in events too; d
 Stat Med 38:1601, count every parameter of a multinomial model — the last from memory). The
 threshold of 3 per parameter is far below any sample-size recommendation on purpose: it only
 marks the point where an estimate would be little more than the rows themselves (common
-practice); above it the shrinkage criterion and the penalised fits take over.
+practice); above it the shrinkage criterion and the penalised fits take over. The rows that would
+be needed are the smallest table, with the counted rows' share unchanged, whose confirmation part
+under the plan that size would get (:func:`pocketforest.resample.choose_plan`) expects that many
+of them; a stratified split rounds, hence "about".
 """
 from __future__ import annotations
 
@@ -135,8 +138,9 @@ def equation_support(have: int, *, n_classes: int | None, rows: int, share: floa
     need = MIN_ROWS_PER_COEFFICIENT * parameters
     if have >= need:
         return None
-    n = max(rows, 1)
-    while n * share * confirmation_share(n) < need:   # the shares in force at n rows; few steps
-        n = max(n + 1, int(np.ceil(need / (share * confirmation_share(n)))))
+    n = rows + 1   # more than now, even where the split's rounding alone left ``have`` short
+    slack = 1e-9   # the product of two shares rounds in its last bits; a count is whole
+    while n * share * confirmation_share(n) < need - slack:   # the shares in force at n rows; few steps
+        n = max(n + 1, int(np.ceil(need / (share * confirmation_share(n)) - slack)))
     return NoEquation("rows" if rarest is None else "rows of the rarest class", rarest, int(have), need,
                       parameters, int(rows), int(n))
