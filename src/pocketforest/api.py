@@ -65,16 +65,17 @@ class Bundle:
     def explain(self, data: pd.DataFrame, model: str | None = None) -> pd.DataFrame:
         """Why each row scores as it does: for the equation the linear predictor and each term's
         contribution on the link scale (intercept included; they add up to it), for the tree the
-        leaf and the rules the row followed. ``model``: "equation", "tree" or None for both.
-        Rows keep ``data``'s index; the columns are those ``score --explain`` writes."""
+        leaf and the rules the row followed. ``model``: "equation", "tree" or None for both (the
+        tree alone when the bundle has no equation). Rows keep ``data``'s index; the columns are those ``score --explain`` writes."""
         from .scoring.explain import Explainer
         if model not in (None, "equation", "tree"):
             raise ValueError("explain takes model='equation', 'tree' or None (both); the forest has no short reason")
         if self._explainer is None:
             self._explainer = Explainer(self.path, self.manifest)
+        from .scoring.bundle_io import models_of
         typed = self._typed(data)
         parts = []
-        if model in (None, "equation"):
+        if model == "equation" or (model is None and "equation" in models_of(self.manifest)):
             parts.append(self._explainer.equation(typed))
         if model in (None, "tree"):
             parts.append(self._explainer.tree(typed))

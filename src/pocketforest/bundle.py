@@ -52,20 +52,22 @@ def build_files(r, created: str) -> tuple[dict[str, bytes], dict]:
     files: dict[str, bytes] = {}
     files["forest.onnx"] = convert_pipeline(r.forest.pipeline, features, task, "forest", {**meta, "model": "forest"}).SerializeToString()
     files["tree.onnx"] = convert_pipeline(r.tree.pipeline, features, task, "tree", {**meta, "model": "tree"}).SerializeToString()
-    files["equation.onnx"] = equation_model(r.equation, features, {**meta, "model": "equation"}).SerializeToString()
+    if r.equation is not None:   # none when the rows could not support one (r.no_equation says why)
+        files["equation.onnx"] = equation_model(r.equation, features, {**meta, "model": "equation"}).SerializeToString()
     prep = r.forest.pipeline.named_steps["prep"]
     from .design import model_frame
     Xd = np.asarray(prep.transform(model_frame(r.table.data.iloc[r.splits.discovery], features)), dtype=np.float32)
     counts = np.asarray(r.tree.model.decision_path(Xd).sum(axis=0)).ravel()
     nodes = tree_nodes(r.tree.model, r.forest.columns, r.fills, task, counts)
-    files["equation.txt"] = equation_text(r.equation, r.fills, r.kinds).encode()
+    if r.equation is not None:
+        files["equation.txt"] = equation_text(r.equation, r.fills, r.kinds).encode()
     files["tree.txt"] = tree_text(nodes, task, r.table.target, classes).encode()
     files["tree.svg"] = tree_svg(nodes, task, r.table.target, classes,
                                  note=fidelity_note(r.fidelity["tree"], r.evaluation.get("on"))).encode()
     for name, text in _code_exports(r, nodes).items():
         files[name] = text.encode()
     rows, spellings = pick_rows(r.table.data, features, r.splits.test, r.settings.seed)
-    ref = with_predictions(rows, r.predict, task, classes)
+    ref = with_predictions(rows, r.predict, task, classes, r.models)
     files["reference.csv"] = reference_csv(ref, features, spellings)
     manifest = _manifest(r, created, nodes)
     files.update(_collaborator_exports(r, nodes, manifest, rows, created))
@@ -101,7 +103,7 @@ def _manifest(r, created: str, nodes) -> dict:
                    "dropped_columns": dict(t.dropped_columns)},
         "features": [{**f.to_dict(), "fill": r.fills[f.name], "spss_name": spss[f.name],
                       **_training_profile(f, t.data.iloc[r.splits.discovery]),
-                      **_term_domain(f.name, r.equation.terms)}
+                      **_term_domain(f.name, r.equation.terms if r.equation is not None else [])}
                      for f in t.features],
         "splits": r.splits.sizes(),
         "forest": {"trees": r.settings.trees, **{k: v for k, v in r.forest.settings.items() if k != "trees"},
@@ -110,9 +112,9 @@ def _manifest(r, created: str, nodes) -> dict:
         "importance": [i.to_dict() for i in r.importance],
         "interactions": r.discovery.interactions,
         "discovery": r.discovery.to_dict(),
-        "terms": [term.to_dict() for term in r.equation.terms],
-        "formula": r.equation.formula,
-        "equation": _equation_section(r.equation),
+        "terms": [term.to_dict() for term in r.equation.terms] if r.equation is not None else [],
+        "formula": r.equation.formula if r.equation is not None else None,
+        "equation": _equation_section(r.equation) if r.equation is not None else r.no_equation.to_dict(),
         "tree": {**r.tree.to_dict(), "nodes": [_node_dict(n) for n in nodes]},
         "evaluation": r.evaluation,
         "fidelity": r.fidelity,

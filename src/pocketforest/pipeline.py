@@ -23,7 +23,7 @@ from .evaluate import fidelity, loss_with_interval, metrics
 from .forest import ForestFit, fit_forest
 from .importance import Importance, oob_increases, summarise
 from .resample import Plan, choose_plan, fold_assignments, out_of_fold
-from .sizing import anticipated_r2
+from .sizing import NoEquation, anticipated_r2, equation_support
 from .features import Table
 from .split import Splits, make_splits
 from .surrogate import TreeFit, distill_tree, mean_frontier
@@ -63,7 +63,8 @@ class Distillation:
     forest: ForestFit
     importance: list[Importance]
     discovery: Discovery
-    equation: EquationFit
+    #: None when the confirmation rows cannot support an honest equation (see ``no_equation``)
+    equation: EquationFit | None
     tree: TreeFit
     fills: dict
     evaluation: dict
@@ -87,6 +88,13 @@ class Distillation:
     timings: dict[str, float] = field(default_factory=dict)
     #: `distill --sample`: the sample design and the check on left-out rows (manifest "sample")
     sample: dict | None = None
+    #: Why there is no equation, and the table rows that would be needed (None: there is one)
+    no_equation: NoEquation | None = None
+
+    @property
+    def models(self) -> tuple[str, ...]:
+        """The models this run delivers: the forest and the tree always, the equation when fitted."""
+        return ("forest", "tree") if self.equation is None else ("forest", "tree", "equation")
 
     @property
     def kinds(self) -> dict[str, str]:
@@ -99,6 +107,9 @@ class Distillation:
     def predict(self, data: pd.DataFrame, model: str = "forest") -> np.ndarray:
         """Python-side predictions (regression values, or class probabilities)."""
         if model == "equation":
+            if self.equation is None:
+                raise ValueError(f"this result has no equation: {self.no_equation.reason}; predict with "
+                                 "model='forest' or model='tree'")
             return self.equation.predict(data)
         X = model_frame(data, self.table.features)
         if model == "forest":  # same numbers as the pipeline's predict, on both cores
@@ -151,8 +162,13 @@ def _outcome(y: np.ndarray, task: str) -> np.ndarray:
     return y.astype(float) if task == "regression" else y.astype(str).astype(object)
 
 
-def _fit_models(table: Table, s: Settings, fractions: tuple[float, float, float]) -> Distillation:
-    """Forest, importance, discovery, equation and tree, each on the rows it may see."""
+def _fit_models(table: Table, s: Settings, fractions: tuple[float, float, float],
+                equation: bool | None = None) -> Distillation:
+    """Forest, importance, discovery, equation and tree, each on the rows it may see.
+
+    ``equation``: None decides by :func:`sizing.equation_support` whether the confirmation rows
+    can carry an equation; True / False fit one or not regardless (the cross-validation folds
+    follow the bundle's decision, so they judge the models the bundle holds)."""
     clock = _Clock()
     data, target, task = table.data, table.target, table.task
     y_all = data[target].to_numpy()
@@ -192,18 +208,16 @@ def _fit_models(table: Table, s: Settings, fractions: tuple[float, float, float]
     discovery = discover(forest, table.features, task, disc, y_d, importance, increases, fills, requests)
     clock.lap("discovery")
 
-    _say(s, "fitting the equation on the confirmation rows")
-    baseline = main_effects([f for f in table.features if f.name in discovery.main_variables])
-    equation = fit_equation(discovery.terms, conf, y_c, task=task, target=target, fills=fills, kinds=kinds,
-                            classes=forest.classes, family=family, robust=s.robust, baseline=baseline,
-                            cap=s.cap_terms, anticipated_r2=r2_hint)
-    if s.family is None and family in ("poisson",) and task == "regression":
-        equation.notes.append(f"{target!r} holds whole numbers from zero up with many zeros, so the equation is a "
-                              "Poisson GLM with a log link by default (pass --family gaussian to override).")
-    if s.refit:
-        both = pd.concat([disc, conf], ignore_index=True)
-        equation = refit_for_scoring(equation, both, np.concatenate([y_d, y_c]), fills=fills, kinds=kinds,
-                                     fit_on="discovery+confirmation", anticipated_r2=r2_hint)
+    absent = _equation_decision(y_all, y_c, task, forest.classes, s) if equation is None else None
+    if equation is False:
+        absent = None   # a cross-validation fold of a bundle without an equation: nothing to judge
+        eq = None
+    elif absent is not None:
+        _say(s, absent.warning)
+        eq = None
+    else:
+        _say(s, "fitting the equation on the confirmation rows")
+        eq = _fit_equation(discovery, table, conf, y_c, disc, y_d, s, family, fills, kinds, forest.classes, r2_hint)
     clock.lap("equation")
 
     _say(s, "distilling the surrogate tree")
@@ -214,10 +228,48 @@ def _fit_models(table: Table, s: Settings, fractions: tuple[float, float, float]
                         min_leaf=s.min_samples_leaf, n_synthetic=s.synthetic_rows)
     clock.lap("tree")
 
-    result = Distillation(table, s, splits, forest, importance, discovery, equation, tree, fills,
-                          {}, {}, {}, list(table.notes) + list(discovery.notes) + list(equation.warnings))
+    result = Distillation(table, s, splits, forest, importance, discovery, eq, tree, fills,
+                          {}, {}, {}, list(table.notes) + list(discovery.notes)
+                          + (list(eq.warnings) if eq is not None else [absent.warning] if absent is not None else []))
+    result.no_equation = absent
     result.timings = clock.laps
     return result
+
+
+def _equation_decision(y_all: np.ndarray, y_c: np.ndarray, task: str, classes: list[str] | None,
+                       s: Settings) -> NoEquation | None:
+    """Can the confirmation rows estimate one slope? (:func:`sizing.equation_support`)."""
+    n = len(y_all)
+
+    def share_at(rows: int) -> float:   # the confirmation share a table of `rows` rows would get
+        return choose_plan(rows, s.split).split[1]
+
+    if task == "regression":
+        return equation_support(len(y_c), n_classes=None, rows=n, share=1.0, confirmation_share=share_at)
+    counts = np.bincount(_codes(y_c, task, classes), minlength=len(classes))
+    k = int(np.argmin(counts))
+    share = float(np.mean(np.asarray(y_all, dtype=str) == classes[k]))
+    return equation_support(int(counts[k]), n_classes=len(classes), rows=n, share=share,
+                            confirmation_share=share_at, rarest=classes[k])
+
+
+def _fit_equation(discovery: Discovery, table: Table, conf: pd.DataFrame, y_c: np.ndarray, disc: pd.DataFrame,
+                  y_d: np.ndarray, s: Settings, family: str, fills: dict, kinds: dict, classes: list[str] | None,
+                  r2_hint: float) -> EquationFit:
+    """The GLM on the confirmation rows, its coefficients re-estimated for scoring (``s.refit``)."""
+    target, task = table.target, table.task
+    baseline = main_effects([f for f in table.features if f.name in discovery.main_variables])
+    equation = fit_equation(discovery.terms, conf, y_c, task=task, target=target, fills=fills, kinds=kinds,
+                            classes=classes, family=family, robust=s.robust, baseline=baseline,
+                            cap=s.cap_terms, anticipated_r2=r2_hint)
+    if s.family is None and family in ("poisson",) and task == "regression":
+        equation.notes.append(f"{target!r} holds whole numbers from zero up with many zeros, so the equation is a "
+                              "Poisson GLM with a log link by default (pass --family gaussian to override).")
+    if s.refit:
+        both = pd.concat([disc, conf], ignore_index=True)
+        equation = refit_for_scoring(equation, both, np.concatenate([y_d, y_c]), fills=fills, kinds=kinds,
+                                     fit_on="discovery+confirmation", anticipated_r2=r2_hint)
+    return equation
 
 
 def _codes(y: np.ndarray, task: str, classes: list[str] | None) -> np.ndarray:
@@ -247,7 +299,9 @@ def _judge_by_cross_validation(r: Distillation, plan: Plan) -> None:
     r.fold_assignment = fold_assignments(y, task, plan, r.settings.seed)
     inner = dataclasses.replace(r.settings, split=plan.split)
     curves: list = []
-    oof = out_of_fold(table, inner, r.fold_assignment, lambda t, st: _fit_models(t, st, plan.split), curves)
+    models = r.models
+    oof = out_of_fold(table, inner, r.fold_assignment,
+                      lambda t, st: _fit_models(t, st, plan.split, equation="equation" in models), curves, models)
     if curves:   # the tree's size/fidelity frontier, averaged over the folds' held-out rows
         r.tree.record_held_out(mean_frontier([c[0] for c in curves]), mean_frontier([c[1] for c in curves], key="depth"),
                                on="cross-validation")
@@ -255,28 +309,28 @@ def _judge_by_cross_validation(r: Distillation, plan: Plan) -> None:
     stacked = {m: p.reshape((repeats * n,) + p.shape[2:]) for m, p in oof.items()}
     y_s = np.tile(y, repeats)
     groups = np.tile(np.arange(n), repeats)
-    apparent = {m: metrics(y, r.predict(table.data, m), task, classes) for m in ("forest", "tree", "equation")}
+    apparent = {m: metrics(y, r.predict(table.data, m), task, classes) for m in models}
     r.evaluation = {"on": "cross-validation", "folds": int(r.fold_assignment.max()) + 1, "repeats": int(repeats),
                     "n": int(n), "method": "repeated k-fold cross-validation of the whole pipeline "
                                            "(forest, discovery, equation and tree refitted in every fold)",
                     **{m: metrics(y_s, p, task, classes) for m, p in stacked.items()},
                     "apparent": apparent}
-    r.fidelity = {m: fidelity(stacked["forest"], stacked[m], task) for m in ("tree", "equation")}
+    r.fidelity = {m: fidelity(stacked["forest"], stacked[m], task) for m in models[1:]}
     r.loss = {m: loss_with_interval(y_s, stacked["forest"], stacked[m], task, classes, resamples=r.settings.bootstrap,
                                     seed=r.settings.seed, groups=groups)
-              for m in ("tree", "equation")}
+              for m in models[1:]}
 
 
 def _judge(r: Distillation, test: pd.DataFrame, y_t: np.ndarray) -> None:
     """Accuracy, fidelity and loss on the test rows only."""
     task, classes = r.table.task, r.classes
-    preds = {m: r.predict(test, m) for m in ("forest", "tree", "equation")}
+    preds = {m: r.predict(test, m) for m in r.models}
     r.evaluation = {"on": "test", "n": int(len(test)),
                     **{m: metrics(y_t, p, task, classes) for m, p in preds.items()}}
-    r.fidelity = {m: fidelity(preds["forest"], preds[m], task) for m in ("tree", "equation")}
+    r.fidelity = {m: fidelity(preds["forest"], preds[m], task) for m in r.models[1:]}
     r.loss = {m: loss_with_interval(y_t, preds["forest"], preds[m], task, classes,
                                     resamples=r.settings.bootstrap, seed=r.settings.seed)
-              for m in ("tree", "equation")}
+              for m in r.models[1:]}
 
 
 __all__ = ["Distillation", "Settings", "distill", "__version__"]

@@ -54,11 +54,13 @@ def prediction_columns(task: str, classes: list[str] | None, model: str) -> list
     return [f"label_{model}"] + [f"prob_{model}_{c}" for c in classes]
 
 
-def with_predictions(rows: pd.DataFrame, predict, task: str, classes: list[str] | None) -> pd.DataFrame:
-    """``predict(rows, model)`` gives values or probabilities; add the contract's columns. A value
-    that is not finite is missing (NaN), and so is the label of a row without probabilities."""
+def with_predictions(rows: pd.DataFrame, predict, task: str, classes: list[str] | None,
+                     models: tuple[str, ...] = ("forest", "tree", "equation")) -> pd.DataFrame:
+    """``predict(rows, model)`` gives values or probabilities; add the contract's columns for
+    ``models`` (those the bundle holds: no equation columns without an equation). A value that
+    is not finite is missing (NaN), and so is the label of a row without probabilities."""
     out = rows.copy()
-    for model in ("forest", "tree", "equation"):
+    for model in models:
         pred = np.asarray(predict(rows, model), dtype=float)
         pred = np.where(np.isfinite(pred), pred, np.nan)
         if task == "regression":

@@ -68,17 +68,19 @@ def fold_assignments(y: np.ndarray, task: str, plan: Plan, seed: int) -> np.ndar
     return out
 
 
-def out_of_fold(table, settings, folds: np.ndarray, fit_models, tree_curves: list | None = None) -> dict[str, np.ndarray]:
+def out_of_fold(table, settings, folds: np.ndarray, fit_models, tree_curves: list | None = None,
+                models: tuple[str, ...] = ("forest", "tree", "equation")) -> dict[str, np.ndarray]:
     """Every model's prediction for every row from the pipeline refitted without that row's fold.
 
     ``fit_models(table, settings)`` is the pipeline's fitting step; returns {model: [repeats, n, ...]}.
     ``tree_curves``, when given, receives each fold's (frontier, depth curve) fidelity on its
-    held-out rows, for the tree's size/fidelity frontier.
+    held-out rows, for the tree's size/fidelity frontier. ``models``: those the bundle holds (no
+    equation figures when the rows could not support one; every fold then fits none either).
     """
     from .design import model_frame
     from .surrogate import depth_fidelity, frontier_fidelity
     n = len(table.data)
-    preds: dict[str, list] = {"forest": [], "tree": [], "equation": []}
+    preds: dict[str, list] = {m: [] for m in models}
     inner = dataclasses.replace(settings, quiet=True)
     for r in range(folds.shape[0]):
         per_model: dict[str, np.ndarray | None] = {m: None for m in preds}

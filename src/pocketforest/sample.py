@@ -328,7 +328,7 @@ def self_check(result, check: pd.DataFrame, source: str) -> dict:
     outside = envelope_count(typed, [f.to_dict() for f in table.features])
     keep = ~unknown
     scored = typed.loc[keep].reset_index(drop=True)
-    preds = {m: result.predict(scored, m) for m in ("forest", "tree", "equation")}
+    preds = {m: result.predict(scored, m) for m in result.models}
     evaluation, fidelity, loss = judge(y[keep], preds, table.task, table.classes, resamples=s.bootstrap, seed=s.seed)
     evaluation["on"] = "check rows"
     out.update({"rows_unknown_class": int(unknown.sum()), "rows_outside_envelope": int((outside > 0).sum()),

@@ -13,8 +13,26 @@ can explain. Where the suggested terms need more coefficients than that, the fit
 (ridge for Gaussian, Firth for logistic and multinomial) rather than cut; terms are dropped only
 when there are too few rows to estimate them at all (:data:`MIN_ROWS_PER_COEFFICIENT`).
 (Formula written from memory of Riley et al.; confirm against the paper before relying on digits.)
+
+No equation at all (:func:`equation_support`): when the estimation (confirmation) rows cannot give
+even the smallest model with one slope :data:`MIN_ROWS_PER_COEFFICIENT` rows per parameter, no
+equation is fitted and the bundle carries the forest and the tree only. The smallest such model
+has 2 parameters for a numeric outcome (intercept and slope) and 2 (K - 1) for K classes (K - 1
+intercepts and K - 1 slopes of the multinomial logit; 2 for two classes). For classes the rows
+counted are the rarest class's confirmation rows, as in events per parameter (Peduzzi et al. 1996
+count the rarer outcome; Riley et al. 2020 state their criteria in events too; de Jong et al. 2019,
+Stat Med 38:1601, count every parameter of a multinomial model — the last from memory). The
+threshold of 3 per parameter is far below any sample-size recommendation on purpose: it only
+marks the point where an estimate would be little more than the rows themselves (common
+practice); above it the shrinkage criterion and the penalised fits take over. The rows that would
+be needed are the smallest table, with the counted rows' share unchanged, whose confirmation part
+under the plan that size would get (:func:`pocketforest.resample.choose_plan`) expects that many
+of them; a stratified split rounds, hence "about".
 """
 from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Callable
 
 import numpy as np
 
@@ -67,3 +85,62 @@ def anticipated_r2(task: str, y: np.ndarray, oob: np.ndarray, classes: list[str]
     ll_null = float(np.sum(np.log(np.clip(shares[codes], 1e-12, 1.0))))
     lr = max(0.0, 2.0 * (ll_model - ll_null))
     return float(1.0 - np.exp(-lr / n))
+
+
+def one_slope_parameters(n_classes: int | None) -> int:
+    """Parameters of the smallest model with one slope: intercept and slope per equation, one
+    equation for a number, K - 1 for K classes."""
+    return 2 if not n_classes else 2 * (n_classes - 1)
+
+
+@dataclass(frozen=True)
+class NoEquation:
+    """The decision that the estimation rows cannot support an honest equation (typed, so every
+    reader decides on these fields, never on the wording of :attr:`reason`)."""
+    counted: str          # "rows" | "rows of the rarest class"
+    rarest: str | None    # that class (classes only)
+    have: int             # confirmation rows counted now
+    need: int             # the least the rule accepts
+    parameters: int       # of the smallest one-slope model
+    rows: int             # table rows now
+    rows_needed: int      # table rows that would give ``need``, at the split shares then in force
+
+    @property
+    def reason(self) -> str:
+        what = "confirmation rows" if self.rarest is None else f"confirmation rows of the rarest class {self.rarest!r}"
+        return (f"the {self.have} {what} are too few to estimate even one slope honestly: the smallest model "
+                f"with one slope has {self.parameters} parameters and needs {MIN_ROWS_PER_COEFFICIENT} rows per "
+                f"parameter, {self.need} rows; about {self.rows_needed} rows in the table (now {self.rows}) "
+                "would be needed")
+
+    @property
+    def warning(self) -> str:
+        """The line the user sees at once (terminal, report notes)."""
+        return f"No equation: {self.reason}. The forest and the tree are still delivered."
+
+    def to_dict(self) -> dict:
+        """The manifest's ``equation`` when there is none."""
+        return {"absent": True, "reason": self.reason, "rows_needed": self.rows_needed,
+                "rule": {"counted": self.counted, "class": self.rarest, "have": self.have, "need": self.need,
+                         "parameters": self.parameters, "rows_per_parameter": MIN_ROWS_PER_COEFFICIENT,
+                         "rows": self.rows}}
+
+
+def equation_support(have: int, *, n_classes: int | None, rows: int, share: float,
+                     confirmation_share: Callable[[int], float], rarest: str | None = None) -> NoEquation | None:
+    """None when ``have`` confirmation rows (the rarest class's, for classes) can estimate a
+    one-slope model at :data:`MIN_ROWS_PER_COEFFICIENT` rows per parameter, else the decision.
+
+    ``share``: the counted rows' share of the table (1 for a number, the rarest class's share for
+    classes); ``confirmation_share(n)``: the confirmation share a table of ``n`` rows would get
+    (it changes with the plan), for the table size that would be needed."""
+    parameters = one_slope_parameters(n_classes)
+    need = MIN_ROWS_PER_COEFFICIENT * parameters
+    if have >= need:
+        return None
+    n = rows + 1   # more than now, even where the split's rounding alone left ``have`` short
+    slack = 1e-9   # the product of two shares rounds in its last bits; a count is whole
+    while n * share * confirmation_share(n) < need - slack:   # the shares in force at n rows; few steps
+        n = max(n + 1, int(np.ceil(need / (share * confirmation_share(n)) - slack)))
+    return NoEquation("rows" if rarest is None else "rows of the rarest class", rarest, int(have), need,
+                      parameters, int(rows), int(n))

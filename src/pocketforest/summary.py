@@ -30,9 +30,11 @@ def result_dict(r) -> dict:
     """The numbers of a :class:`~pocketforest.pipeline.Distillation`, before any bundle exists."""
     return {"task": r.table.task, "target": r.table.target, "splits": r.splits.sizes(),
             "oob": r.forest.oob, "evaluation": r.evaluation, "fidelity": r.fidelity, "loss": r.loss,
-            "formula": r.equation.formula, "tree": {"depth": r.tree.depth, "leaves": r.tree.leaves},
+            "formula": r.equation.formula if r.equation is not None else None,
+            "tree": {"depth": r.tree.depth, "leaves": r.tree.leaves},
             "importance": [i.to_dict() for i in r.importance], "warnings": r.warnings,
-            "plan": r.plan.to_dict() if r.plan is not None else None}
+            "plan": r.plan.to_dict() if r.plan is not None else None,
+            **({"equation_absent": r.no_equation.to_dict()} if r.no_equation is not None else {})}
 
 
 def summary_dict(r, path: str) -> dict:
@@ -75,8 +77,9 @@ def format_summary(d: dict) -> str:
     if d.get("plan"):
         lines.append(f"plan: {d['plan']['reason']}")
     lines.append("")
+    models = [m for m in MODELS if m in ev]   # no equation row when there is none
     fid, loss = {"forest": "(reference)"}, {"forest": ""}
-    for m in MODELS[1:]:
+    for m in models[1:]:
         fid[m] = ", ".join(f"{k} {_f(v, '.3f')}" for k, v in d["fidelity"][m].items())
         lo = d["loss"][m]
         loss[m] = (f"{lo['metric']} {_f(lo['value'], '+.4f')} "
@@ -84,12 +87,13 @@ def format_summary(d: dict) -> str:
     on = (f"on {ev['n']} test rows" if ev.get("on") == "test"
           else f"{ev.get('repeats')}x{ev.get('folds')}-fold CV")
     rows = [[on] + names + ["fidelity", "loss (95% interval)"]]
-    rows += [[m] + [_f(ev[m][n], ".4f") for n in names] + [fid[m], loss[m]] for m in MODELS]
+    rows += [[m] + [_f(ev[m][n], ".4f") for n in names] + [fid[m], loss[m]] for m in models]
     right = [False] + [True] * len(names) + [False, False]
     table = aligned_columns(rows, right)
     rule = "-" * max(len(line) for line in table)
     lines += [table[0], rule] + table[1:]
-    lines += ["", f"equation: {d['formula']}", f"tree:     depth {d['tree']['depth']}, {d['tree']['leaves']} leaves"]
+    equation = d["formula"] if not d.get("equation_absent") else "none: " + d["equation_absent"]["reason"]
+    lines += ["", f"equation: {equation}", f"tree:     depth {d['tree']['depth']}, {d['tree']['leaves']} leaves"]
     if d.get("sample"):
         lines.append(sample_line(d["sample"]))
     if d.get("warnings"):
@@ -131,6 +135,8 @@ def result_text(r) -> str:
     """What ``Distillation.summary()`` returns: the scoreboard, fidelity and loss, the formula, the
     tree's size and the equation's coefficients, as text (numbers as in the ``--json`` output)."""
     eq = r.equation
+    if eq is None:   # the summary already says why and how many rows would be needed
+        return format_summary(result_dict(r))
     paper = eq.inference or eq        # the fit whose standard errors and p-values are for reading
     lines = [format_summary(result_dict(r)), "",
              f"coefficients: {eq.family} GLM, {eq.link} link, on the {paper.fit_on} rows (n = {paper.n})"]
@@ -147,6 +153,7 @@ def result_text(r) -> str:
 def result_line(r) -> str:
     """One short line for ``repr(Distillation)``: what was fitted and how well the surrogates did."""
     key = r.loss["tree"]["metric"]
-    scores = ", ".join(f"{m} {_f(r.evaluation[m].get(key), '.3f')}" for m in MODELS)
+    scores = ", ".join(f"{m} {_f(r.evaluation[m].get(key), '.3f')}" for m in r.models)
+    terms = "no equation" if r.equation is None else f"{len(r.equation.terms)} terms"
     return (f"<Distillation {r.table.task} of {r.table.target!r}: test {key} {scores}; "
-            f"{len(r.equation.terms)} terms, tree of {r.tree.leaves} leaves>")
+            f"{terms}, tree of {r.tree.leaves} leaves>")

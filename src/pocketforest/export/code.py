@@ -29,10 +29,13 @@ def export_meta(target: str, task: str, classes: list[str] | None) -> dict:
 
 
 def code_exports(eq, nodes: list[TreeNode], meta: dict) -> dict[str, str]:
-    """File name → text for an equation fit and tree nodes (usable without a whole run)."""
+    """File name → text for an equation fit and tree nodes (usable without a whole run); the
+    tree's files alone when ``eq`` is None (the rows could not support an equation)."""
+    tree = {"tree.sql": tree_sql(nodes, meta), "tree.py": tree_py(nodes, meta), "tree.js": tree_js(nodes, meta)}
+    if eq is None:
+        return tree
     return {"equation.tex": equation_tex(eq, meta), "equation.sql": equation_sql(eq, meta),
-            "equation.py": equation_py(eq, meta), "equation.js": equation_js(eq, meta),
-            "tree.sql": tree_sql(nodes, meta), "tree.py": tree_py(nodes, meta), "tree.js": tree_js(nodes, meta)}
+            "equation.py": equation_py(eq, meta), "equation.js": equation_js(eq, meta), **tree}
 
 
 def all_exports(r, nodes: list[TreeNode]) -> dict[str, str]:
@@ -43,7 +46,11 @@ def collaborator_exports(eq, nodes: list[TreeNode], meta: dict, features: list, 
                          rows, created: str | None = None, cautions: list[str] = ()) -> dict[str, bytes]:
     """File name → bytes of the collaborators' forms. ``features``: the data's features;
     ``manifest_features``: their manifest entries (ranges, levels, fills); ``rows``: the reference
-    input rows the workbook starts with."""
+    input rows the workbook starts with. Without an equation (``eq`` None) only tree.R: the
+    SPSS syntax and the workbook hold the equation alone, and the calculator page is the two
+    surrogates side by side, so a tree-only page would be a different product."""
+    if eq is None:
+        return {"tree.R": tree_r(nodes, meta).encode()}
     return {"equation.R": equation_r(eq, meta).encode(), "tree.R": tree_r(nodes, meta).encode(),
             "equation.sps": equation_sps(eq, meta, features).encode(),
             "equation.xlsx": equation_workbook(eq, meta, features, rows, created, cautions),

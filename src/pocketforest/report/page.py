@@ -18,6 +18,7 @@ import numpy as np
 from . import plots
 from .mathml import equation_blocks
 from .palette import CSS_VARIABLES
+from ..scoring.bundle_io import equation_absent, models_of
 from .snippets import collaborator_snippets
 from .shapes import material_variables, shape_curves
 
@@ -187,7 +188,7 @@ def _sample(m: dict) -> str:
         parts.append(f"<p>Checked on {ev['n']:,} other rows, a seeded random sample of the rows the sample left "
                      "out (computed as <code>pocketforest compare</code> computes it):</p>")
         parts.append(_table(["model"] + names, [[mdl] + [ev[mdl].get(k) for k in names]
-                                                for mdl in ("forest", "tree", "equation")]))
+                                                for mdl in models_of(m)]))
         parts.append(_table(["surrogate", "loss", "95% interval"],
                             [[mdl, f"{lo['value']:+.4f}", f"{lo['ci_low']:+.4f} to {lo['ci_high']:+.4f}"]
                              for mdl, lo in chk["loss"].items()]))
@@ -199,7 +200,7 @@ def _scoreboard(m: dict) -> str:
     names = [k for k in ev["forest"]]
     key = m["loss"]["tree"]["metric"]
     cards = []
-    for mdl in ("forest", "tree", "equation"):
+    for mdl in models_of(m):
         extra = ("out-of-bag " + ", ".join(f"{k} {_num(v, 3)}" for k, v in (m["forest"].get("oob") or {}).items())
                  if mdl == "forest" else
                  "fidelity " + ", ".join(f"{k} {_num(v, 3)}" for k, v in m["fidelity"][mdl].items()))
@@ -218,13 +219,16 @@ def _scoreboard(m: dict) -> str:
                      "on the rows they were fitted on) are shown below; the gap is their optimism.</p>".replace("{n}", str(n)))
     else:
         parts.append(f"<p>All figures on the {n} test rows, which no model saw while it was fitted.</p>")
-    parts.append(_table(["model"] + names, [[mdl] + [ev[mdl].get(k) for k in names] for mdl in ("forest", "tree", "equation")]))
+    parts.append(_table(["model"] + names, [[mdl] + [ev[mdl].get(k) for k in names] for mdl in models_of(m)]))
     if cv and ev.get("apparent"):
         parts.append("<p class='note'>Apparent (optimistic) figures:</p>"
                      + _table(["model"] + names, [[mdl] + [ev["apparent"][mdl].get(k) for k in names]
-                                                  for mdl in ("forest", "tree", "equation")]))
+                                                  for mdl in models_of(m)]))
+    if equation_absent(m):
+        parts.append(_absent("There is no equation to score (see “The equation”): only the forest and the tree "
+                             "are judged."))
     rows = []
-    for mdl in ("tree", "equation"):
+    for mdl in models_of(m)[1:]:
         lo = m["loss"][mdl]
         fid = ", ".join(f"{k} {_num(v, 3)}" for k, v in m["fidelity"][mdl].items())
         rows.append([mdl, fid, f"{lo['value']:+.4f}", f"{lo['ci_low']:+.4f} to {lo['ci_high']:+.4f}"])
@@ -298,6 +302,12 @@ def _shapes(r, m: dict) -> str:
         return _absent("No variable stood out, so no shape is drawn.")
     curves = shape_curves(r, m, variables)
     panels = []
+    if equation_absent(m):   # the forest's curves alone
+        for s in curves:
+            panels.append(f"<div class='panel'>{plots.shape_plot(s)}<p><b>{_e(s['variable'])}</b></p></div>")
+        return ("<p>The forest's partial dependence (Friedman 2001): the average prediction with the variable set "
+                "to each value. There is no equation to draw beside it (see “The equation”). Ticks on the axis mark "
+                "the deciles of the discovery rows.</p><div class='grid'>" + "".join(panels) + "</div>")
     for s in curves:
         terms = "; ".join(_term_text(t, s["variable"]) for t in s["terms"]) or "not in the equation"
         panels.append(f"<div class='panel'>{plots.shape_plot(s)}<p><b>{_e(s['variable'])}</b> — equation: "
@@ -325,7 +335,7 @@ def _interactions(m: dict) -> str:
     inter = [i for i in (m.get("interactions") or []) if len(i.get("variables", [])) == 2]
     if not inter:
         return _absent("The discovery step measured no pair of variables in this bundle, so there is "
-                       "no interaction matrix; the equation holds main effects only.")
+                       "no interaction matrix" + ("." if equation_absent(m) else "; the equation holds main effects only."))
     fig = plots.interaction_plot(inter)
     products = any("product" in it for it in inter)
     figures = [(k, label) for k, label in _PAIR_COLUMNS if any(k in it for it in inter)]
@@ -380,7 +390,24 @@ def _evidence_text(ev: dict) -> str:
     return "; ".join(parts)
 
 
+def _no_equation(m: dict) -> str:
+    """The plain statement that there is no equation, why, and the rows that would be needed."""
+    eq = m["equation"]
+    rule = eq.get("rule") or {}
+    counted = ("confirmation rows" if rule.get("class") is None
+               else f"confirmation rows of the rarest class, <code>{_e(rule['class'])}</code>")
+    return (f"<p><b>There is no equation in this bundle.</b> The {counted} number {_e(rule.get('have'))}. Even the "
+            f"smallest equation with one slope has {_e(rule.get('parameters'))} parameters, and at "
+            f"{_e(rule.get('rows_per_parameter'))} rows per parameter it needs {_e(rule.get('need'))} such rows; "
+            "with fewer, its estimates would mostly repeat the rows they were fitted on. About "
+            f"<b>{_e(eq.get('rows_needed'))} rows</b> in the table (now {_e(rule.get('rows'))}), with the classes in "
+            "the same shares, would be needed. The forest and the tree are delivered as usual; there is no "
+            "<code>equation.onnx</code>, no equation code, SQL, R, SPSS syntax, workbook or calculator page.</p>")
+
+
 def _equation(r, m: dict, files: set[str] | None = None) -> str:
+    if equation_absent(m):
+        return _no_equation(m)
     eq = m["equation"]
     parts = []
     link = {"identity": "identity link", "logit": "logit link", "log": "log link"}.get(eq["link"], eq["link"])
@@ -485,7 +512,7 @@ def _tree_size(r, m: dict) -> str:
     show = set(_FRONTIER_ROWS) | {t["leaves"]} | ({chosen["cap"]} if chosen.get("cap") else set())
     head = ["leaves", "depth", f"{names[key]}, confirmation"] + ([f"{names.get(k, k)}, {where}" for k in keys] if held else [])
     rows = [[row["leaves"], row["depth"], row["confirmation"][key]]
-            + ([row["held_out"].get(k) for k in keys] if held and row.get("held_out") else [])
+            + ([(row.get("held_out") or {}).get(k) for k in keys] if held else [])   # "–" where no fold grew that size
             + (["← chosen"] if row["leaves"] == t["leaves"] else [""])
             for row in frontier if row["leaves"] in show]
     head.append("")
@@ -533,31 +560,36 @@ def _elsewhere(m: dict, files: set[str] | None) -> str:
              "a missing number is NaN / <code>None</code> / <code>null</code>, a missing category the empty string.</p>",
              "<h3>ONNX (any onnxruntime: Python, C, C++, C#, Java, JavaScript)</h3>",
              f"<pre><code>import numpy as np, onnxruntime as ort\nsession = ort.InferenceSession(\"forest.onnx\")   "
-             f"# or tree.onnx, equation.onnx\nfeeds = {{{_e(feeds)}}}\n{_e(out)} = session.run(None, feeds)</code></pre>"]
-    def other(ext: str) -> str:
-        return f"   {'--' if ext == 'sql' else '#' if ext == 'py' else '//'} or tree.{ext}" if _present(files, f"tree.{ext}") else ""
+             f"# or {', '.join(f'{x}.onnx' for x in models_of(m)[1:])}\nfeeds = {{{_e(feeds)}}}\n{_e(out)} = session.run(None, feeds)</code></pre>"]
+    # the equation's file first, the tree's named beside it; the tree's alone without an equation
+    lead = "tree" if equation_absent(m) else "equation"
 
-    if _present(files, "equation.sql"):
+    def other(ext: str) -> str:
+        return (f"   {'--' if ext == 'sql' else '#' if ext == 'py' else '//'} or tree.{ext}"
+                if lead == "equation" and _present(files, f"tree.{ext}") else "")
+
+    if _present(files, f"{lead}.sql"):
         parts += ["<h3>SQL (SQLite or DuckDB)</h3>",
                   "<pre><code>-- load your rows into a table named input_rows, e.g. in the duckdb shell:\n"
                   "CREATE TABLE input_rows AS SELECT * FROM read_csv('new_rows.csv');\n"
-                  f".read equation.sql{other('sql')}\n"
-                  "-- sqlite3 shell:  .import --csv new_rows.csv input_rows   then   .read equation.sql\n"
+                  f".read {lead}.sql{other('sql')}\n"
+                  f"-- sqlite3 shell:  .import --csv new_rows.csv input_rows   then   .read {lead}.sql\n"
                   "-- the result: every column of input_rows plus the prediction</code></pre>"]
-    if _present(files, "equation.py"):
+    if _present(files, f"{lead}.py"):
         parts += ["<h3>Python (standard library only)</h3>",
-                  "<pre><code>import importlib.util\nspec = importlib.util.spec_from_file_location(\"equation\", "
-                  f"\"equation.py\"){other('py')}\nequation = importlib.util.module_from_spec(spec)\n"
-                  f"spec.loader.exec_module(equation)\nprint(equation.predict({_e(py_row)}))</code></pre>"]
-    if _present(files, "equation.js"):
+                  f"<pre><code>import importlib.util\nspec = importlib.util.spec_from_file_location(\"{lead}\", "
+                  f"\"{lead}.py\"){other('py')}\n{lead} = importlib.util.module_from_spec(spec)\n"
+                  f"spec.loader.exec_module({lead})\nprint({lead}.predict({_e(py_row)}))</code></pre>"]
+    if _present(files, f"{lead}.js"):
         parts += ["<h3>JavaScript (Node.js or a browser)</h3>",
-                  f"<pre><code>const {{ predict }} = require(\"./equation.js\");{other('js')}\n"
+                  f"<pre><code>const {{ predict }} = require(\"./{lead}.js\");{other('js')}\n"
                   f"console.log(predict({_e(json.dumps(row))}));</code></pre>"]
-    parts += collaborator_snippets(m, row, lambda name: _present(files, name))
-    if not any(_present(files, f"equation.{ext}") for ext in ("sql", "py", "js")):
+    parts += collaborator_snippets(m, row, lambda name: _present(files, name) and not (
+        (name.startswith("equation") or name == "calculator.html") and equation_absent(m)))
+    if not any(_present(files, f"{lead}.{ext}") for ext in ("sql", "py", "js")):
         parts.append(_absent("This bundle carries no SQL, Python or JavaScript printouts of the models; "
                              "score it through ONNX."))
-    pred_cols = ("<code>pred_forest</code>, <code>pred_tree</code>, <code>pred_equation</code>"
+    pred_cols = (", ".join(f"<code>pred_{x}</code>" for x in models_of(m))
                  if m["task"] == "regression" else
                  "<code>label_&lt;model&gt;</code> and <code>prob_&lt;model&gt;_&lt;class&gt;</code>")
     parts += ["<h3>Check your runtime against the reference rows</h3>",
@@ -567,7 +599,7 @@ def _elsewhere(m: dict, files: set[str] | None) -> str:
               "with your runtime and compare: values should agree to about 1e-4 (ONNX tree ensembles compute in "
               "float32). Where pocketforest is installed, one command checks every form and every checksum:</p>",
               "<pre><code>pocketforest verify .        # exit 0: every form reproduces reference.csv\n"
-              "pocketforest score . new_rows.csv --model equation --out predictions.csv\n"
+              f"pocketforest score . new_rows.csv --model {models_of(m)[-1]} --out predictions.csv\n"
               "pocketforest compare . labelled_rows.csv     # loss and drift on new labelled rows</code></pre>"]
     return "".join(parts)
 
@@ -604,7 +636,8 @@ def render_report(r, m: dict, files: set[str] | dict | None = None) -> str:
     }
     body = [_section(i + 1, key, title, _build(key, builders[key])) for i, (key, title) in enumerate(SECTIONS)]
     nav = "<nav><ol>" + "".join(f"<li><a href='#{k}'>{_e(t)}</a></li>" for k, t in SECTIONS) + "</ol></nav>"
-    head = (f"<header><h1>{_e(m['target'])}: a forest, an equation and a tree</h1>"
+    what = "a forest and a tree (no equation)" if equation_absent(m) else "a forest, an equation and a tree"
+    head = (f"<header><h1>{_e(m['target'])}: {what}</h1>"
             f"<div class='meta'>pocketforest {_e(m.get('tool_version', ''))} · {_e(m['task'])} · "
             f"created {_e(m.get('created', ''))} · seed {_e(m.get('seed', ''))} · "
             f"data <code>{_e((m.get('source') or {}).get('file', ''))}</code></div></header>")

@@ -50,17 +50,18 @@ def shape_curves(r, m: dict, variables: list[str]) -> list[dict]:
         f = kinds[var]
         stored = _stored(r, var)
         grid, forest = stored if stored else _forest_pd(r, disc, sample, f)
-        equation = _equation_pd(r, sample, var, grid, f.kind)
+        equation = _equation_pd(r, sample, var, grid, f.kind) if r.equation is not None else None
         scale = _scale(r)
         if stored:
             # Centre both lines so their shapes compare (the stored curve comes from a different
             # sample of rows than the equation's, so their levels need not match).
-            forest, equation = _centred(forest), _centred(equation)
+            forest = _centred(forest)
+            equation = _centred(equation) if equation is not None else None
             scale = f"{scale[:28]} (centred)"
         out.append({"variable": var, "kind": f.kind, "grid": list(grid), "forest": forest,
                     "equation": equation, "outcomes": _outcomes(r), "scale": scale,
                     "deciles": _deciles(disc[var]) if f.kind == "numeric" else None,
-                    "terms": [t for t in r.equation.terms if var in t.variables],
+                    "terms": [t for t in r.equation.terms if var in t.variables] if r.equation is not None else [],
                     "source": "discovery step" if stored else "computed for this report"})
     return out
 

@@ -52,9 +52,9 @@ def collaborator_snippets(m: dict, row: dict, present) -> list[str]:
         parts += ["<h3>In a browser</h3>",
                   "<p>Open <code>calculator.html</code>: one field per input, both surrogates' predictions and each "
                   "term's share as you type, a warning outside the training range. It works offline.</p>"]
+    why = ("pocketforest score . new_rows.csv --model equation --explain --out why.csv   "
+           "# each term's contribution\n" if present("equation.onnx") else "")
     parts += ["<h3>Why this score</h3>",
-              "<pre><code>pocketforest score . new_rows.csv --model equation --explain --out why.csv   "
-              "# each term's contribution\n"
-              "pocketforest score . new_rows.csv --model tree --explain --out path.csv      "
+              "<pre><code>" + why + "pocketforest score . new_rows.csv --model tree --explain --out path.csv      "
               "# the rules each row followed</code></pre>"]
     return parts

@@ -61,3 +61,24 @@ def bundle_file(bundle: str | os.PathLike, manifest: dict, name: str, *, check: 
     if check and sha256(path) != manifest["artifacts"][name]:
         raise BundleError(f"{path} does not match its checksum in manifest.json: the file was altered")
     return path
+
+
+def equation_absent(manifest: dict) -> dict | None:
+    """The manifest's record of why the bundle has no equation (``equation.absent``), or None."""
+    eq = manifest.get("equation")
+    return eq if isinstance(eq, dict) and eq.get("absent") is True else None
+
+
+def models_of(manifest: dict) -> tuple[str, ...]:
+    """The models a bundle holds: the forest and the tree always, the equation unless absent."""
+    return ("forest", "tree") if equation_absent(manifest) else ("forest", "tree", "equation")
+
+
+def require_model(manifest: dict, model: str) -> None:
+    """Refuse a model the bundle does not hold, with the manifest's reason and what to use instead."""
+    absent = equation_absent(manifest)
+    if model == "equation" and absent is not None:
+        rows = absent.get("rows_needed")
+        raise BundleError(f"this bundle has no equation: its confirmation rows were too few to estimate one "
+                          f"honestly (about {rows} rows in the table would be needed); use --model forest or "
+                          "--model tree")

@@ -37,7 +37,7 @@ from pathlib import Path
 import pandas as pd
 
 from ..errors import BundleError, InputError
-from .bundle_io import bundle_file, read_manifest, sha256
+from .bundle_io import bundle_file, read_manifest, require_model, sha256
 from .runtime import MODELS, Scorer
 
 __all__ = ["BundleRef", "check_bundle", "score", "score_files", "worker_scorer", "local_cluster", "loads"]
@@ -59,6 +59,7 @@ def check_bundle(bundle: str | os.PathLike, model: str, *, threads: int = 1) -> 
         raise InputError(f"--model '{model}' is not one of {', '.join(MODELS)}")
     root = Path(bundle).resolve()
     manifest = read_manifest(root)
+    require_model(manifest, model)
     bundle_file(root, manifest, f"{model}.onnx", check=True)
     return BundleRef(str(root), model, sha256(root / "manifest.json"), manifest["artifacts"][f"{model}.onnx"],
                      int(threads))

@@ -1,4 +1,4 @@
-"""`compare`: how do a bundle's three models do on new labelled rows, and how far have the rows moved?
+"""`compare`: how do a bundle's models (three, or two without an equation) do on new labelled rows, and how far have the rows moved?
 
 Months after fitting, a user holds new rows with the outcome recorded. This module scores them
 with the bundle's own ONNX models (as `score` would, so what is judged is what ships), then
@@ -28,7 +28,7 @@ from ..intake.coerce import coerce_for_scoring
 from ..intake.reading import read_table
 from ..intake.values import category_text
 from ..summary import aligned_columns
-from .bundle_io import read_manifest
+from .bundle_io import equation_absent, models_of, read_manifest
 from .runtime import MODELS, Scorer, envelope_count
 from .score import features_of
 
@@ -60,6 +60,8 @@ class Comparison:
     breaches: list[str] = field(default_factory=list)
     #: rows left out because a model gave no prediction (the equation has no finite value there)
     rows_without_prediction: int = 0
+    #: the manifest's ``equation`` record when the bundle has no equation (None: it has one)
+    equation_absent: dict | None = None
 
     @property
     def exit_code(self) -> int:
@@ -72,7 +74,8 @@ class Comparison:
                        "rows_without_prediction": self.rows_without_prediction, "evaluation": self.evaluation,
                        "fidelity": self.fidelity, "loss": self.loss, "drift": self.drift,
                        "at_distill": self.training, "thresholds": self.thresholds,
-                       "breaches": self.breaches, "exit_code": self.exit_code})
+                       "breaches": self.breaches, "exit_code": self.exit_code,
+                       **({"equation_absent": self.equation_absent} if self.equation_absent else {})})
 
     def text(self) -> str:
         return comparison_text(self.to_dict())
@@ -105,7 +108,7 @@ def compare(bundle: str | os.PathLike, data: str | os.PathLike, *, max_loss: flo
     scored = typed.loc[keep].reset_index(drop=True)
     y = y[keep]
     preds = {}
-    for model in MODELS:
+    for model in models_of(manifest):
         out = Scorer(bundle, model, manifest).run(scored)
         preds[model] = out["prediction"] if task == "regression" else out["probabilities"]
     # every model is judged on the same rows: those where each gave a prediction
@@ -123,7 +126,7 @@ def compare(bundle: str | os.PathLike, data: str | os.PathLike, *, max_loss: flo
     result = Comparison(str(bundle), str(data), task, target, int(len(y)), without, int(unknown.sum()),
                         evaluation, fid, loss, drift, training,
                         thresholds={"max_loss": max_loss, "max_outside": max_outside},
-                        rows_without_prediction=without_prediction)
+                        rows_without_prediction=without_prediction, equation_absent=equation_absent(manifest))
     result.breaches = _breaches(result, max_loss, max_outside)
     return result
 
@@ -133,11 +136,12 @@ def judge(y: np.ndarray, preds: dict[str, np.ndarray], task: str, classes: list[
     """Each model's metrics, the surrogates' fidelity, and their loss with its paired-bootstrap
     interval on labelled rows: what `compare` reports, and what `distill --sample` measures on
     its check rows."""
+    surrogates = [m for m in MODELS[1:] if m in preds]   # no equation when the bundle has none
     evaluation = {"on": "new rows", "n": int(len(y)),
-                  **{m: metrics(y, preds[m], task, classes) for m in MODELS}}
-    fid = {m: fidelity(preds["forest"], preds[m], task) for m in ("tree", "equation")}
+                  **{m: metrics(y, preds[m], task, classes) for m in MODELS if m in preds}}
+    fid = {m: fidelity(preds["forest"], preds[m], task) for m in surrogates}
     loss = {m: loss_with_interval(y, preds["forest"], preds[m], task, classes, resamples=resamples, seed=seed)
-            for m in ("tree", "equation")}
+            for m in surrogates}
     return evaluation, fid, loss
 
 
@@ -214,7 +218,7 @@ def _drift(typed: pd.DataFrame, features: list[dict], outside_rows: np.ndarray) 
 def _breaches(c: Comparison, max_loss: float | None, max_outside: float | None) -> list[str]:
     out = []
     if max_loss is not None:
-        for m in ("tree", "equation"):
+        for m in c.loss:
             lo = c.loss[m]
             if lo["value"] > max_loss:
                 out.append(f"{m} loses {lo['value']:.4f} in {lo['metric']} against the forest "
@@ -256,12 +260,14 @@ def comparison_text(d: dict) -> str:
     if d.get("rows_without_prediction"):
         lines.append(f"  {d['rows_without_prediction']} rows where the equation has no finite value left out of the metrics")
     table = [["model"] + names + ["(at distill, test rows)"]]
-    for m in MODELS:
+    for m in (m for m in MODELS if m in ev):
         old = then.get(m) or {}
         table.append([m] + [_f(ev[m][n]) for n in names]
                      + ["(" + ", ".join(f"{n} {_f(old.get(n))}" for n in names) + ")"])
     lines += [""] + aligned_columns(table, [False] + [True] * len(names) + [False]) + [""]
-    for m in ("tree", "equation"):
+    if d.get("equation_absent"):
+        lines.append("equation  none in this bundle: " + str(d["equation_absent"].get("reason")))
+    for m in d["loss"]:
         lo, fid = d["loss"][m], d["fidelity"][m]
         old = (d["at_distill"].get("loss") or {}).get(m) or {}
         lines.append(f"{m:<9} fidelity " + ", ".join(f"{k} {_f(v, '.3f')}" for k, v in fid.items())

@@ -20,7 +20,7 @@ import numpy as np
 import pandas as pd
 
 from . import engines, runners
-from .bundle_io import bundle_file
+from .bundle_io import bundle_file, models_of
 from ..export.spss import spss_names
 from .verify import CODE_PROB_ATOL, CODE_RTOL, Check, compare_predictions
 
@@ -59,12 +59,12 @@ PAGE_FORMS = [("calculator.html equation (Chromium)", "equation"), ("calculator.
 
 
 def r_checks(bundle, manifest: dict, ref: pd.DataFrame, work: Path) -> list[Check]:
-    forms = R_FORMS
+    forms = _held(R_FORMS, manifest)   # tree.R alone in a bundle without an equation
 
     def run():
         paths = {form: bundle_file(bundle, manifest, f"{model}.R") for form, model in forms}
         return engines.run_r_exports(paths, ref, manifest["features"], manifest["task"], manifest.get("classes"), work)
-    return _guarded(forms, manifest, ref, ["equation.R", "tree.R"], run)
+    return _guarded(forms, manifest, ref, [f"{model}.R" for _, model in forms], run)
 
 
 def pspp_checks(bundle, manifest: dict, ref: pd.DataFrame, work: Path) -> list[Check]:
@@ -111,12 +111,24 @@ def chromium_checks(bundle, manifest: dict, ref: pd.DataFrame, work: Path) -> li
 
 _CHECKS = (("r", r_checks, R_FORMS), ("libreoffice", libreoffice_checks, CALC_FORMS),
            ("pspp", pspp_checks, PSPP_FORMS), ("chromium", chromium_checks, PAGE_FORMS))
+#: Engines whose file exists only with an equation (the workbook, the SPSS syntax, and the
+#: calculator page, which shows the equation beside the tree).
+EQUATION_ENGINES = ("libreoffice", "pspp", "chromium")
+
+
+def _held(forms: list[tuple[str, str]], manifest: dict) -> list[tuple[str, str]]:
+    """The forms of the models the bundle holds."""
+    held = models_of(manifest)
+    return [(form, model) for form, model in forms if model in held]
 
 
 def collaborator_checks(bundle, manifest: dict, ref: pd.DataFrame, skip=()) -> list[Check]:
-    """Every engine's checks, each engine in a fresh temporary folder."""
+    """Every engine's checks, each engine in a fresh temporary folder. A bundle without an
+    equation has only tree.R among these forms (no SPSS syntax, workbook or calculator page)."""
     out: list[Check] = []
     for engine, check, forms in _CHECKS:
+        if engine in EQUATION_ENGINES and "equation" not in models_of(manifest):
+            continue   # its file is written only with an equation: nothing to start
         if engine in skip:
             out += _skipped(forms, engine)
             continue

@@ -12,7 +12,7 @@ import onnxruntime as ort
 import pandas as pd
 
 from ..errors import InputError
-from .bundle_io import bundle_file, read_manifest
+from .bundle_io import bundle_file, read_manifest, require_model
 
 MODELS = ("forest", "tree", "equation")
 
@@ -77,6 +77,7 @@ class Scorer:
             raise InputError(f"--model '{model}' is not one of {', '.join(MODELS)}")
         self.model = model
         self.manifest = manifest or read_manifest(bundle)
+        require_model(self.manifest, model)
         path = bundle_file(bundle, self.manifest, f"{model}.onnx", check=check)
         try:
             self.session = make_session(path, threads=threads, latency=latency)

@@ -40,8 +40,8 @@ import pandas as pd
 from ..errors import BundleError, InputError
 from . import runners
 from ..intake.coerce import coerce_for_scoring
-from .bundle_io import bundle_file, read_manifest, sha256
-from .runtime import MODELS, Scorer
+from .bundle_io import bundle_file, equation_absent, models_of, read_manifest, sha256
+from .runtime import Scorer
 from .score import features_of
 
 VALUE_RTOL = 1e-4
@@ -132,23 +132,24 @@ def _checksums(bundle: str | Path, manifest: dict) -> Check:
 
 def _onnx_checks(bundle, manifest, ref) -> list[Check]:
     out = []
-    for model in MODELS:
+    for model in models_of(manifest):
         scorer = Scorer(bundle, model, manifest, check=False)
         out.append(compare_predictions(f"{model}.onnx (onnxruntime, Python)", manifest, ref, model, scorer.run(ref)))
     return out
 
 
 def _node_onnx_checks(bundle, manifest, ref, quiet: bool = False) -> list[Check]:
-    forms = [f"{m}.onnx (onnxruntime-node, Node.js)" for m in MODELS]
+    models = models_of(manifest)
+    forms = [f"{m}.onnx (onnxruntime-node, Node.js)" for m in models]
     try:
-        paths = {m: bundle_file(bundle, manifest, f"{m}.onnx") for m in MODELS}
+        paths = {m: bundle_file(bundle, manifest, f"{m}.onnx") for m in models}
         raw = runners.run_onnx_node(paths, ref, manifest["features"], quiet=quiet)
     except runners.RunnerUnavailable as exc:
         return [Check(f, True, None, None, f"skipped: {exc}", skipped=True) for f in forms]
     except runners.RunnerFailed as exc:
         return [Check(f, False, None, None, str(exc)) for f in forms]
     out = []
-    for model, form in zip(MODELS, forms):
+    for model, form in zip(models, forms):
         res = raw[model]
         if manifest["task"] == "regression":
             got = {"prediction": np.asarray(res["prediction"], dtype=float).reshape(-1)}
@@ -180,18 +181,19 @@ def _code_checks(bundle, manifest, ref, text, skip_node: bool = False) -> list[C
     rows = runners.text_rows(text, ref, features)
     sql_rows = {"sqlite": rows, "duckdb": runners.text_rows(text, ref, features, numbers_as_text=False)}
     out = []
-    for model in ("equation", "tree"):
+    surrogates = [m for m in ("equation", "tree") if m in models_of(manifest)]
+    for model in surrogates:
         sql = f"{model}.sql"
         for engine, label in (("sqlite", "SQLite"), ("duckdb", "DuckDB")):
             out.append(_code_check(f"{sql} ({label})", bundle, manifest, ref, model, sql,
                                    lambda p, e=engine: runners.sql_predictions(
                                        runners.run_sql(e, p.read_text(encoding="utf-8"), ref, features,
                                                        rows=sql_rows[e]), task, classes)))
-    for model in ("equation", "tree"):
+    for model in surrogates:
         out.append(_code_check(f"{model}.py (Python, separate isolated interpreter)", bundle, manifest, ref, model,
                                f"{model}.py",
                                lambda p: runners.collect(runners.run_python_export(p, rows), task, classes)))
-    for model in ("equation", "tree"):
+    for model in surrogates:
         if skip_node:
             out.append(Check(f"{model}.js (Node.js)", True, None, None, "skipped: --skip node", skipped=True))
             continue
@@ -218,12 +220,16 @@ def verify_bundle(bundle: str | Path, *, quiet: bool = False, skip: tuple[str, .
     checks = [_checksums(bundle, manifest)]
     if not checks[0].ok:
         return checks
+    absent = equation_absent(manifest)
+    if absent is not None:   # said once; only the forest's and the tree's forms are checked below
+        checks.append(Check("equation", True, None, None, f"none in this bundle: {absent.get('reason')}",
+                            skipped=True))
     text = read_reference_text(bundle, manifest)
     ref = read_reference(bundle, manifest, text)
     checks += _onnx_checks(bundle, manifest, ref)
     if "node" in skip:
         checks += [Check(f"{m}.onnx (onnxruntime-node, Node.js)", True, None, None, "skipped: --skip node",
-                         skipped=True) for m in MODELS]
+                         skipped=True) for m in models_of(manifest)]
     else:
         checks += _node_onnx_checks(bundle, manifest, ref, quiet=quiet)
     checks += _code_checks(bundle, manifest, ref, text, skip_node="node" in skip)
