@@ -65,6 +65,14 @@ def test_threshold_is_the_size_from_which_the_split_plan_keeps_holding():
     assert small.chosen_threshold(rows[:3], "regression") is None    # still losing at the largest size
 
 
+def test_null_goal_is_judged_only_from_200_block_tests():
+    row = {"rate_given_test": 0.04, "tested": small.MIN_TESTS}
+    assert small._null_mark(row) is True
+    assert small._null_mark({**row, "rate_given_test": 0.08}) is False
+    assert small._null_mark({**row, "tested": small.MIN_TESTS - 1}) is None     # too few tests to judge
+    assert small._null_mark({"rate_given_test": None, "tested": 0}) is None
+
+
 def test_quick_run_is_well_formed(tmp_path):
     section = small.run(True, tmp_path, lambda text: None)   # as `bench --only small --quick` runs it
     raw = section.raw["small"]
@@ -104,7 +112,12 @@ def test_counts_and_tasks_come_from_the_command_line():
     parser = argparse.ArgumentParser()
     small.add_arguments(parser)
     args = parser.parse_args(["--small-null", "250", "--small-tasks", "classification"])
-    assert small.options(args) == {"null": 250, "coverage": None, "seeds": None, "tasks": ("classification",)}
+    assert small.options(args) == {"null": 250, "coverage": None, "seeds": None, "tasks": ("classification",),
+                                   "parts": None, "sizes": None}
+    args = parser.parse_args(["--small-parts", "null,threshold", "--small-sizes", "300,800"])
+    assert small.options(args)["parts"] == ("null", "threshold") and small.options(args)["sizes"] == (300, 800)
+    with pytest.raises(InputError, match="--small-parts"):
+        small.options(parser.parse_args(["--small-parts", "power"]))
     with pytest.raises(InputError, match="--small-seeds"):
         small.options(parser.parse_args(["--small-seeds", "1"]))
     with pytest.raises(InputError, match="--small-tasks"):
