@@ -105,6 +105,8 @@ def test_quick_run_is_well_formed(tmp_path):
     assert all(f.passed is None or isinstance(f.passed, bool) for f in section.figures)
     text = "\n".join(section.lines)
     assert "Threshold" in text and "SHORT" not in text and "pass" not in text   # quick: nothing judged
+    only_null = small.render(small.summarise_null(raw["null"]), [], [])        # --small-parts null
+    assert only_null.startswith("Small data") and "Loss interval" not in only_null and "Threshold" not in only_null
 
 
 def test_counts_and_tasks_come_from_the_command_line():

@@ -311,7 +311,17 @@ def chosen_threshold(summary: list[dict], task: str) -> int | None:
 
 def render(null: list[dict], coverage: list[dict], threshold: list[dict], *, population: int = POPULATION_ROWS,
            judged: bool = True) -> str:
-    """The section's three tables; ``judged=False`` (a quick run) marks no goal."""
+    """The section's three tables (those of the parts that ran); ``judged=False`` (a quick run)
+    marks no goal."""
+    blocks = [_render_null(null, judged)] if null else []
+    if coverage:
+        blocks.append(_render_coverage(coverage, population))
+    if threshold:
+        blocks.append(_render_threshold(threshold))
+    return "\n\n".join(blocks)
+
+
+def _render_null(null: list[dict], judged: bool) -> str:
     lines = [f"Small data: block-test null rejection at alpha {ALPHA} (goal 0.05 ± 0.02, judged on the rate among "
              f"data sets with a block test, from {MIN_TESTS} such data sets)",
              f"{'task':<15}{'rows':>6}{'data sets':>10}{'plan':>18}{'with test':>10}{'rate|test':>10}{'mc se':>7}"
@@ -324,18 +334,26 @@ def render(null: list[dict], coverage: list[dict], threshold: list[dict], *, pop
         lines.append(f"{s['task']:<15}{s['n']:>6}{s['datasets']:>10}{s['plan']:>18}{s['with_block_test']:>10.0%}"
                      f"{cond:>10}{se:>7}{s['rate_all']:>9.3f}{whole:>12}{s['seconds']:>7.2f}  "
                      + ("n/a" if ok is None else "(not judged)" if not judged else "pass" if ok else "SHORT"))
-    lines += ["", f"Loss interval of the equation at {COVERAGE_ROWS} rows (level {LEVEL}, goal coverage >= {COVERAGE_GOAL}); "
+    return "\n".join(lines)
+
+
+def _render_coverage(coverage: list[dict], population: int) -> str:
+    lines = [f"Loss interval of the equation at {COVERAGE_ROWS} rows (level {LEVEL}, goal coverage >= {COVERAGE_GOAL}); "
                   f"truth on {population:,} population rows",
-              f"{'task':<15}{'runs':>5}{'metric':>9}{'cover fitted':>13}{'mc se':>7}{'cover expected':>15}"
+             f"{'task':<15}{'runs':>5}{'metric':>9}{'cover fitted':>13}{'mc se':>7}{'cover expected':>15}"
               f"{'expected loss':>14}{'mean reported':>14}{'sd true':>8}{'below':>7}{'above':>7}{'width':>7}{'s/run':>7}"]
     for s in coverage:
         sd = "-" if s["sd_true_loss"] is None else f"{s['sd_true_loss']:.3f}"
         lines.append(f"{s['task']:<15}{s['runs']:>5}{s['metric']:>9}{s['coverage_fitted']:>13.3f}{s['mc_se_fitted']:>7.3f}"
                      f"{s['coverage_expected']:>15.3f}{s['expected_loss']:>+14.4f}{s['mean_reported']:>+14.4f}{sd:>8}"
                      f"{s['truth_below']:>7.2f}{s['truth_above']:>7.2f}{s['mean_width']:>7.3f}{s['seconds']:>7.2f}")
-    lines += ["", "Threshold: forced split 0.5/0.25/0.25 vs cross-validation plan, same tables (equation; true = on the "
+    return "\n".join(lines)
+
+
+def _render_threshold(threshold: list[dict]) -> str:
+    lines = ["Threshold: forced split 0.5/0.25/0.25 vs cross-validation plan, same tables (equation; true = on the "
                   "population rows; error = |reported - true|; advantage = cv better by, ± se)",
-              f"{'task':<15}{'rows':>6}{'runs':>5}{'true split':>11}{'true cv':>9}{'cv adv':>16}"
+             f"{'task':<15}{'rows':>6}{'runs':>5}{'true split':>11}{'true cv':>9}{'cv adv':>16}"
               f"{'err split':>10}{'err cv':>8}{'cv adv':>16}{'s split':>8}{'s cv':>7}  split plan"]
     for s in threshold:
         lines.append(f"{s['task']:<15}{s['n']:>6}{s['runs']:>5}{s['split_true']:>11.4f}{s['cv_true']:>9.4f}"
