@@ -12,7 +12,8 @@ Three simulations, each on seeded invented tables whose truth they construct:
   same test): every suggested term beyond the main effects, tested on rows that took no part in
   choosing them (Cox 1975). A data set whose discovery suggested no such term has no block test;
   that happens on the discovery rows alone, so conditional on a test existing the confirmation
-  rows still give a valid test, and the 5% goal is judged on that conditional rate. The rate over
+  rows still give a valid test, and the 5% goal is judged on that conditional rate, once at least
+  :data:`MIN_TESTS` data sets have a test (on pure noise 8-12% do). The rate over
   all data sets (no test = no rejection) and the test of the whole confirmation-fit model against
   the intercept alone (``equation.block_test`` with the intercept as the reduced design: the F
   test, or the likelihood-ratio test, penalised after a Firth fit) are printed beside it.
@@ -42,7 +43,9 @@ and 300 rows; loss-interval coverage at 150 rows at least 0.93.
 
 Run: ``python -m pocketforest.bench --only small`` (or ``--small`` beside the default sections),
 ``--quick`` (a few data sets, nothing judged), ``--small-null N``, ``--small-coverage N``,
-``--small-seeds N`` (threshold tables per size), ``--small-tasks regression``.
+``--small-seeds N`` (threshold tables per size), ``--small-tasks regression``, ``--small-parts
+null,threshold``, ``--small-sizes 300,800`` (threshold row counts). Results and the threshold
+chosen from them: docs/performance.md, "Small data".
 """
 from __future__ import annotations
 
