@@ -32,7 +32,7 @@ from scipy import stats
 
 from .errors import InputError
 from .expr import evaluate
-from .separation import firth_fit, is_separated
+from .separation import firth_fit, is_separated, restricted_penalised_llf
 from .sizing import estimable_coefficients, supported_coefficients
 from .terms import Column, Term, design_columns, formula, resolve_levels, term_columns
 
@@ -466,6 +466,19 @@ def _loglik(X: np.ndarray, y: np.ndarray, family: str, penalised: bool, n_classe
         return float(sm.GLM(y, X, family=sm.families.Poisson()).fit().llf), X.shape[1]
 
 
+def _nested_columns(X_full: np.ndarray, X_reduced: np.ndarray) -> list[int]:
+    """Positions in ``X_full`` of the columns of ``X_reduced`` (the reduced design is a subset of
+    the full design's columns, copied exactly)."""
+    keep: list[int] = []
+    for i in range(X_reduced.shape[1]):
+        hit = next((j for j in range(X_full.shape[1]) if j not in keep and np.array_equal(X_full[:, j], X_reduced[:, i])),
+                   None)
+        if hit is None:
+            raise ValueError("the reduced design of a penalised likelihood-ratio test must be columns of the full design")
+        keep.append(hit)
+    return keep
+
+
 def block_test(X_full: np.ndarray, X_reduced: np.ndarray, y: np.ndarray, family: str, *,
                penalised: bool = False, n_classes: int | None = None) -> dict | None:
     """One test of all suggested terms beyond the main effects, on one set of rows.
@@ -473,7 +486,8 @@ def block_test(X_full: np.ndarray, X_reduced: np.ndarray, y: np.ndarray, family:
     Gaussian: the exact F test of the nested least-squares models. Binomial, Poisson and
     multinomial: the likelihood-ratio chi-square test with df = extra coefficients, which for
     the multinomial model is extra columns x (K - 1) (McCullagh & Nelder 1989, ch. 4-5). After a
-    separated fit it is the penalised likelihood-ratio test (Heinze & Schemper 2002).
+    Firth fit it is the penalised likelihood-ratio test (Heinze & Schemper 2002): both maxima
+    under the full design's penalty, the reduced one with the extra coefficients held at zero.
     """
     y = np.asarray(y, dtype=float)
     if family == "gaussian":
@@ -489,7 +503,17 @@ def block_test(X_full: np.ndarray, X_reduced: np.ndarray, y: np.ndarray, family:
         return {"test": "F", "statistic": float(stat), "df": df, "df_resid": dof,
                 "p_value": float(stats.f.sf(stat, df, dof))}
     ll1, k1 = _loglik(X_full, y, family, penalised, n_classes)
-    ll0, k0 = _loglik(X_reduced, y, family, penalised, n_classes)
+    if penalised:   # the reduced model under the full model's penalty (Heinze & Schemper 2002)
+        keep = _nested_columns(X_full, X_reduced)
+        k = (n_classes or int(y.max()) + 1) if family == "multinomial" else 2
+        k0 = len(keep) * (k - 1)
+        if k1 - k0 <= 0:
+            return None
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            ll0 = restricted_penalised_llf(X_full, y.astype(int), k, keep)
+    else:
+        ll0, k0 = _loglik(X_reduced, y, family, penalised, n_classes)
     df = int(k1 - k0)
     if df <= 0:
         return None

@@ -136,13 +136,16 @@ def _say(settings: Settings, text: str) -> None:
         print(text, file=sys.stderr, flush=True)
 
 
-def distill(table: Table, settings: Settings | None = None) -> Distillation:
+def distill(table: Table, settings: Settings | None = None, *, plan: Plan | None = None) -> Distillation:
     """The whole job: fit every model once, then judge them on the test rows, or by
-    cross-validating the whole pipeline when the table is small (:mod:`pocketforest.resample`)."""
+    cross-validating the whole pipeline when the table is small (:mod:`pocketforest.resample`).
+
+    ``plan`` overrides the plan the row count chooses; the benchmark's threshold simulation
+    (``bench/small.py``) runs both plans on the same tables with it."""
     s = settings or Settings()
     y_all = table.data[table.target].to_numpy()
     check_family(s.family, table.task, table.classes, y_all, table.target)   # fail before any fitting
-    plan = choose_plan(len(table.data), s.split)
+    plan = plan or choose_plan(len(table.data), s.split)
     _say(s, f"plan: {plan.reason}")
     result = _fit_models(table, s, plan.split)
     result.plan = plan

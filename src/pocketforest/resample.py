@@ -17,7 +17,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-#: Below this many rows the small-data plan applies (README and docs/performance.md say why).
+#: Below this many rows the small-data plan applies. docs/performance.md ("Small data") has the
+#: simulation of both plans by size (`bench --small`): the split plan stops losing from about 800.
 SMALL_DATA_ROWS = 500
 FOLDS = 5
 REPEATS = 2

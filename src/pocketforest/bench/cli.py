@@ -9,7 +9,7 @@ from dataclasses import asdict
 from pathlib import Path
 
 from ..errors import InputError
-from . import anchor, cluster, honest, power, speed, tree
+from . import anchor, cluster, honest, power, small, speed, tree
 from .common import machine
 
 #: Every section as (name, flag, module, help). flag None: always runs. A new section is a new
@@ -19,6 +19,7 @@ SECTIONS = [
     ("honest", None, honest, "null rejection and loss-interval coverage"),
     ("anchor", "--anchor", anchor, "the equation against hand-built GLMs on public tables (issue 12)"),
     ("power", "--power", power, "planted-truth recovery and noise by size (issue 11)"),
+    ("small", "--small", small, "small data: null rejection, loss coverage at 150 rows, the no-test-split threshold (issue 12)"),
     ("tree", "--tree", tree, "surrogate tree fidelity: greedy vs search, synthetic rows, default size"),
     ("cluster", "--cluster", cluster, "score on a local Dask cluster and distill --sample, 10,000,000 rows"),
 ]
