@@ -2,7 +2,7 @@
 the bundle says why and how many rows would be needed, and the forest and the tree still ship.
 
 The tables are invented (synthetic cases whose truth the test constructs): 60 rows, a binary
-outcome whose rarer class is the rows with the largest ``x1``. Below 500 rows the plan puts half
+outcome whose rarer class is the rows with the largest ``x1``. Below 800 rows the plan puts half
 the rows in confirmation, stratified by class, so 10 rare rows give 5 rare confirmation rows
 (under the rule's 6 = 3 per parameter x 2 parameters) and 12 give 6 (enough). The rule itself is
 :func:`pocketforest.sizing.equation_support`.
@@ -54,17 +54,18 @@ def test_rule_counts_parameters_of_the_one_slope_model():
 
 
 def test_rows_needed_follows_the_plan_that_size_would_get():
-    """At 500 rows the plan changes from half the rows in confirmation to a quarter
-    (resample.SMALL_SPLIT vs the 0.5/0.25/0.25 split): the count needed is read at its own plan."""
-    from pocketforest.resample import choose_plan
+    """At resample.SMALL_DATA_ROWS (800) the plan changes from half the rows in confirmation to a
+    quarter (resample.SMALL_SPLIT vs the 0.5/0.25/0.25 split): the count needed is read at its own plan."""
+    from pocketforest.resample import SMALL_DATA_ROWS, choose_plan
     from pocketforest.sizing import equation_support
     def share(rows: int) -> float:
         return choose_plan(rows, None).split[1]
-    # 18 rare confirmation rows (4 classes) at a rarest share of 5%: 720 rows at half, but at
-    # 720 rows the plan gives a quarter, so 1440.
-    d = equation_support(3, n_classes=4, rows=100, share=0.05, confirmation_share=share)
-    assert d.need == 18 and d.rows_needed == 1440
-    assert d.rows_needed * 0.05 * share(d.rows_needed) >= d.need > (d.rows_needed - 1) * 0.05 * share(d.rows_needed - 1)
+    # 18 rare confirmation rows (4 classes) at a rarest share of 4%: 900 rows at half, but at
+    # 900 rows the plan gives a quarter, so 1800.
+    assert 900 >= SMALL_DATA_ROWS
+    d = equation_support(3, n_classes=4, rows=100, share=0.04, confirmation_share=share)
+    assert d.need == 18 and d.rows_needed == 1800
+    assert d.rows_needed * 0.04 * share(d.rows_needed) >= d.need > (d.rows_needed - 1) * 0.04 * share(d.rows_needed - 1)
 
 
 # ---------------------------------------------------------------- the whole path, through the CLI

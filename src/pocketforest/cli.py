@@ -47,7 +47,7 @@ def _distill_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
     p.add_argument("--split", default=None,
                    help="discovery,confirmation,test shares, e.g. 0.5,0.25,0.25 (default: that split from "
-                        "500 rows; below, no test split and figures from cross-validation of the whole pipeline)")
+                        "800 rows; below, no test split and figures from cross-validation of the whole pipeline)")
     p.add_argument("--categorical", nargs="+", default=[], metavar="COL", help="treat these columns as categories")
     p.add_argument("--ignore", nargs="+", default=[], metavar="COL", help="leave these columns out")
     p.add_argument("--family", choices=["gaussian", "binomial", "multinomial", "poisson", "negative_binomial"],

@@ -79,7 +79,10 @@ def _common(manifest, k):
 
 
 def test_breast_cancer_two_classes(tmp_path, monkeypatch):
-    r, m = _run(_frame(load_breast_cancer, None), "target", tmp_path, "cancer", monkeypatch, tree_depth=3)
+    # The three-way split forced (569 rows would get the small-data plan): the starved path,
+    # where the rows cannot carry every suggested term.
+    r, m = _run(_frame(load_breast_cancer, None), "target", tmp_path, "cancer", monkeypatch, tree_depth=3,
+                split=(0.5, 0.25, 0.25))
     _common(m, 2)
     eq = m["equation"]
     assert eq["family"] == "binomial" and m["tree"]["depth"] <= 3

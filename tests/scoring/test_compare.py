@@ -30,7 +30,9 @@ def fitted(tmp_path_factory):
     out = {}
     for name, task, k in (("regression", "regression", 2), ("multiclass", "classification", 3)):
         df = synthetic_table(n=500, seed=11, task=task, n_classes=k)
-        r = distill(prepare(df, "y", source=f"{name}.csv"), Settings(trees=40, seed=5, quiet=True, bootstrap=300))
+        # the three-way split forced: compare must reproduce figures that came from test rows
+        r = distill(prepare(df, "y", source=f"{name}.csv"),
+                    Settings(trees=40, seed=5, quiet=True, bootstrap=300, split=(0.5, 0.25, 0.25)))
         bundle = Path(r.write(base / name))
         test_rows = r.table.data.iloc[r.splits.test]
         csv = base / f"{name}_test.csv"
