@@ -26,6 +26,10 @@ def test_a_60_row_table_distils_with_the_cross_validation_plan(tmp_path):
     path = r.write(tmp_path / "tiny")
     m = json.loads((tmp_path / "tiny" / "manifest.json").read_text())
     assert m["plan"]["kind"] == "cross-validation" and m["splits"]["test"] == 0
+    # the loss interval says what it is about: the procedure's expected loss, not these models'
+    from pocketforest.pipeline import ESTIMAND_CV
+    assert m["loss"]["equation"]["estimand"] == m["loss"]["tree"]["estimand"] == ESTIMAND_CV
+    assert "expected loss of this modelling procedure" in (tmp_path / "tiny" / "report.html").read_text(encoding="utf-8")
     from pocketforest.scoring.verify import verify_bundle
     assert all(c.ok for c in verify_bundle(path))
 

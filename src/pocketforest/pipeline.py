@@ -294,6 +294,15 @@ class _Clock:
         self._last = now
 
 
+#: What a loss interval is about. On test rows: the bundle's own models. Under cross-validation:
+#: the expected loss of the modelling procedure at this many rows, which is what cross-validation
+#: estimates (Bates, Hastie & Tibshirani 2024, J Am Stat Assoc); the bootstrap holds the fold refits
+#: fixed, so the interval is narrower than the uncertainty about the bundle's own models (measured
+#: by ``bench --small``: docs/performance.md, "Small data").
+ESTIMAND_TEST = "loss of the bundle's models"
+ESTIMAND_CV = "expected loss of the modelling procedure at this many rows"
+
+
 def _judge_by_cross_validation(r: Distillation, plan: Plan) -> None:
     """Out-of-fold predictions of the whole pipeline refitted per fold, pooled over repeats; the
     loss interval's bootstrap draws original rows with all their repeats."""
@@ -319,8 +328,9 @@ def _judge_by_cross_validation(r: Distillation, plan: Plan) -> None:
                     **{m: metrics(y_s, p, task, classes) for m, p in stacked.items()},
                     "apparent": apparent}
     r.fidelity = {m: fidelity(stacked["forest"], stacked[m], task) for m in models[1:]}
-    r.loss = {m: loss_with_interval(y_s, stacked["forest"], stacked[m], task, classes, resamples=r.settings.bootstrap,
-                                    seed=r.settings.seed, groups=groups)
+    r.loss = {m: {**loss_with_interval(y_s, stacked["forest"], stacked[m], task, classes,
+                                       resamples=r.settings.bootstrap, seed=r.settings.seed, groups=groups),
+                  "estimand": ESTIMAND_CV}
               for m in models[1:]}
 
 
@@ -331,8 +341,9 @@ def _judge(r: Distillation, test: pd.DataFrame, y_t: np.ndarray) -> None:
     r.evaluation = {"on": "test", "n": int(len(test)),
                     **{m: metrics(y_t, p, task, classes) for m, p in preds.items()}}
     r.fidelity = {m: fidelity(preds["forest"], preds[m], task) for m in r.models[1:]}
-    r.loss = {m: loss_with_interval(y_t, preds["forest"], preds[m], task, classes,
-                                    resamples=r.settings.bootstrap, seed=r.settings.seed)
+    r.loss = {m: {**loss_with_interval(y_t, preds["forest"], preds[m], task, classes,
+                                       resamples=r.settings.bootstrap, seed=r.settings.seed),
+                  "estimand": ESTIMAND_TEST}
               for m in r.models[1:]}
 
 

@@ -216,7 +216,11 @@ def _scoreboard(m: dict) -> str:
                      "pipeline on all {n} rows: forest, discovery, equation and tree were refitted in every fold "
                      "without that fold's rows (Harrell, Lee &amp; Mark 1996; Steyerberg 2019). The bundle holds the "
                      "models fitted once on all rows; the refits only judge them. The apparent figures (those models "
-                     "on the rows they were fitted on) are shown below; the gap is their optimism.</p>".replace("{n}", str(n)))
+                     "on the rows they were fitted on) are shown below; the gap is their optimism. The loss "
+                     "intervals describe the expected loss of this modelling procedure on tables of this size, which "
+                     "is what cross-validation estimates (Bates, Hastie &amp; Tibshirani 2024). They hold the fold "
+                     "refits fixed, so they are narrower than the uncertainty about these particular models.</p>"
+                     .replace("{n}", str(n)))
     else:
         parts.append(f"<p>All figures on the {n} test rows, which no model saw while it was fitted.</p>")
     parts.append(_table(["model"] + names, [[mdl] + [ev[mdl].get(k) for k in names] for mdl in models_of(m)]))
