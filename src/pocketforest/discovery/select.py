@@ -412,6 +412,7 @@ def _forward_backward(ctx: Context, base: list[Term], candidates: list[Candidate
     budget = ctx.requests.budget
     max_terms = ctx.requests.max_terms
     by_key = {c.key: c for c in candidates}
+    main_key = {c.terms[0].variables[0]: c.key for c in candidates if c.pool == "main"}   # variable → its candidate
 
     def design(mains: list[int], chosen: list[str]) -> np.ndarray:
         blocks = [base_cols[i] for i in mains] + [cols[k] for k in chosen]
@@ -420,11 +421,11 @@ def _forward_backward(ctx: Context, base: list[Term], candidates: list[Candidate
     def present(mains: list[int], chosen: list[str]) -> set[str]:
         """Variables whose main effect is in the model (base or entered as a candidate)."""
         return ({base[i].variables[0] for i in mains}
-                | {k.split(":", 1)[1] for k in chosen if by_key[k].pool == "main"})
+                | {by_key[k].terms[0].variables[0] for k in chosen if by_key[k].pool == "main"})
 
     def missing(c: Candidate, have: set[str]) -> list[str]:
         """Main-effect candidates ``c`` brings in with it (hierarchy)."""
-        return [f"main effect:{v}" for v in c.brings if v not in have]
+        return [main_key[v] for v in c.brings if v not in have]
 
     def with_mains(c: Candidate, have: set[str]) -> np.ndarray:
         extra_cols = [cols[k] for k in missing(c, have)]
@@ -466,7 +467,7 @@ def _forward_backward(ctx: Context, base: list[Term], candidates: list[Candidate
         chosen.extend(brought + [best.key])
         score = best_score
         log.append({"step": len(log), "added": best.key, "criterion": float(score), "drop": gains[best.key],
-                    **({"with_main_effects": [k.split(":", 1)[1] for k in brought]} if brought else {})})
+                    **({"with_main_effects": [by_key[k].terms[0].variables[0] for k in brought]} if brought else {})})
     # Backward: a candidate chosen early may be made redundant by a later one, and a main effect
     # may add nothing once the forest's terms are in (a correlated proxy, say). The weakest
     # removable term leaves first, one at a time (backward elimination).
