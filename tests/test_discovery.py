@@ -326,3 +326,32 @@ def test_count_criterion_is_a_negative_binomial_with_its_dispersion_fixed():
     gaussian = Criterion(y, "regression", None, "gaussian")
     gaussian.set_dispersion(x[:, None])
     assert gaussian.alpha == 0.0 and not gaussian.count
+
+
+def test_count_score_test_gives_nothing_for_a_block_the_design_already_spans():
+    """Constructed: two indicators that are never 1 together (like the good/fair health flags of
+    the RAND data) and overdispersed counts (gamma–Poisson, α near 1). The indicators' centred
+    product is an exact sum of the intercept and the two indicators, so adding it changes nothing
+    fitted: its score statistic must be 0 and the block must cost its BIC charge. Before, the
+    information left after the design (rounding noise) was inverted: on these rows a χ² of 64, and
+    the forward pass took such a product. A block with one new direction beside the spanned one
+    counts that direction's χ² only."""
+    from pocketforest.discovery.select import Criterion
+    rng = np.random.default_rng(0)
+    n = 3000
+    state = rng.choice(3, n, p=[0.5, 0.35, 0.15])
+    g, f = (state == 1).astype(float), (state == 2).astype(float)
+    x, z = rng.normal(size=n), rng.normal(size=n)
+    y = rng.poisson(np.exp(0.8 + 0.3 * g + 0.5 * f + 0.2 * x) * rng.gamma(1.0, 1.0, n)).astype(float)
+    X = np.column_stack([g, f, x])
+    product = ((g - g.mean()) * (f - f.mean()))[:, None]
+    assert np.linalg.matrix_rank(np.column_stack([np.ones(n), X, product])) == 4   # in the span, exactly
+    crit = Criterion(y, "regression", None, "poisson")
+    crit.set_dispersion(X)
+    assert crit.alpha > 0.5
+    now = crit(X)
+    spanned, mixed, alone = crit.extended(X, [product, np.column_stack([product, z]), z[:, None]])
+    # 1e-6: the χ² of a spanned direction is 0 up to float64 rounding of the information (~1e-13)
+    assert spanned == pytest.approx(now + np.log(n), abs=1e-6)
+    # the mixed block's χ² is the new column's alone; it pays one more log n for the spanned column
+    assert mixed == pytest.approx(alone + np.log(n), abs=1e-6)

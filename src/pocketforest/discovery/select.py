@@ -59,6 +59,10 @@ def _columns(terms: list[Term], data: pd.DataFrame, fills: dict, kinds: dict) ->
 
 
 COUNT_FAMILIES = ("poisson", "negative_binomial")
+#: A block direction whose information, once the current design is accounted for, is below this
+#: share of the block's own information is taken to lie in the design's span (rounding: the
+#: residual information of an exactly collinear column is ~1e-16 of its own in float64).
+COLLINEAR = 1e-8
 
 
 class Criterion:
@@ -177,7 +181,15 @@ class Criterion:
     def _count_score_tests(self, X: np.ndarray, blocks: list[np.ndarray]) -> list[float]:
         """Rao score statistic of each block from one fit of the current count model (log link,
         NB2 with α fixed): U = Bᵀ(y − μ)/(1 + αμ), information BᵀWB − BᵀWD(DᵀWD)⁻¹DᵀWB with
-        W = μ/(1 + αμ) (Poisson: α = 0)."""
+        W = μ/(1 + αμ) (Poisson: α = 0).
+
+        Directions of a block that the current design already spans (a product of two indicators
+        that never meet, centred, is a sum of its main effects) carry no information: their
+        information is rounding noise, and inverting it gave χ² in the hundreds for a column that
+        changes nothing fitted (randhie, ``hlthg × hlthf``), and the forward pass took it and then
+        judged every removal against that false criterion. Such directions are left out, as the
+        least-squares branch leaves them out by its singular values; the block still pays for all
+        its columns, so a block with nothing new never enters."""
         D = self._with_intercept(X)
         mu = self._count_mean(D)
         base = self._count_minus_2ll(mu)
@@ -189,8 +201,12 @@ class Criterion:
         for b in blocks:
             U = b.T @ r
             cross = WD.T @ b
-            info = (b * w[:, None]).T @ b - cross.T @ inv @ cross
-            chi2 = float(U @ np.linalg.pinv(info) @ U)
+            own = (b * w[:, None]).T @ b
+            info = own - cross.T @ inv @ cross
+            lam, vec = np.linalg.eigh((info + info.T) / 2.0)
+            keep = lam > COLLINEAR * max(float(np.max(np.diag(own), initial=0.0)), 1e-300)
+            proj = vec[:, keep].T @ U
+            chi2 = float(np.sum(proj ** 2 / lam[keep]))
             out.append(base - max(chi2, 0.0) + (D.shape[1] + b.shape[1]) * np.log(self.n))
         return out
 
