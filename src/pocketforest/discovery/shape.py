@@ -150,7 +150,10 @@ def _numeric_shape(ctx, pd_rows: np.ndarray, ale_rows: np.ndarray, col: int, cor
     task = ctx.task
     x = ctx.design[:, col]
     # the grid is recorded to 6 decimals, so compute on exactly the recorded values
-    grid = np.unique(np.round(quantile_grid(x, GRID_POINTS), 6))
+    distinct = np.unique(np.round(x, 6))
+    # A number with few values is drawn at every one of them: quantiles of a number that is mostly
+    # one value (randhie's physlm, 83% zeros, 11 values) give a grid of 3 points and no curve.
+    grid = distinct if len(distinct) <= GRID_POINTS else np.unique(np.round(quantile_grid(x, GRID_POINTS), 6))
     if len(grid) < 2:
         return {"kind": "numeric", "grid": grid.tolist(), "pd": [], "chosen": "linear",
                 "note": "too few distinct values for a curve"}
