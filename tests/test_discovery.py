@@ -355,3 +355,55 @@ def test_count_score_test_gives_nothing_for_a_block_the_design_already_spans():
     assert spanned == pytest.approx(now + np.log(n), abs=1e-6)
     # the mixed block's χ² is the new column's alone; it pays one more log n for the spanned column
     assert mixed == pytest.approx(alone + np.log(n), abs=1e-6)
+
+
+def test_a_number_with_few_values_gets_its_curve_at_every_value():
+    """Constructed: ``dose`` is 0 in 85% of rows and takes 9 other values; the outcome dips at the
+    middle values and rises at the top (a shape a line cannot follow). Its 2.5–97.5% quantiles
+    gave 3 grid points and no curve at all; every one of its 10 values is now a grid point, the
+    partial dependence is drawn there and the bend is put forward."""
+    rng = np.random.default_rng(21)
+    n = 1200
+    levels = np.array([0.02, 0.03, 0.05, 0.1, 0.15, 0.2, 0.4, 0.7, 1.0])
+    dose = np.where(rng.uniform(size=n) < 0.85, 0.0, rng.choice(levels, n))
+    x = rng.normal(size=n)
+    y = x + np.select([dose == 0, dose < 0.3], [0.0, -2.0], 2.0) + rng.normal(0, 0.5, n)
+    r = _distill(pd.DataFrame({"dose": dose, "x": x, "y": y}), trees=40)
+    sh = r.discovery.shapes["dose"]
+    assert sh["grid"] == sorted({0.0, *levels.tolist()})
+    assert len(sh["pd"]) == len(sh["grid"]) and sh["bend_put_forward"]
+
+
+def test_count_selection_keeps_the_refitted_criterion_of_each_model():
+    """Constructed: overdispersed counts (gamma–Poisson) with a strong bend in ``x`` and a
+    pure-noise ``z`` in the starting main effects. The score statistic of the bend overstates its
+    likelihood-ratio drop many times over (a first-order guess far from the current model); kept as
+    the criterion, it let no later removal look worthwhile, so ``z`` stayed. The selection now
+    records the refitted criterion of the model it chose, and ``z`` leaves."""
+    from types import SimpleNamespace
+
+    from pocketforest.discovery.context import Context, Requests
+    from pocketforest.discovery.select import (COUNT_BEND_COST, Candidate, Criterion, _columns,
+                                               _forward_backward)
+    from pocketforest.features import Feature
+    from pocketforest.terms import Term
+    rng = np.random.default_rng(2)
+    n = 2500
+    x, z = rng.normal(size=n), rng.normal(size=n)
+    y = rng.poisson(np.exp(0.5 + 0.5 * (x ** 2 - 1)) * rng.gamma(1.0, 1.0, n)).astype(float)
+    frame = pd.DataFrame({"x": x, "z": z})
+    ctx = Context(SimpleNamespace(classes=None), [Feature(v, "numeric", v, 0.0) for v in ("x", "z")],
+                  "regression", frame, y, {"x": 0.0, "z": 0.0}, Requests(family="poisson"))
+    base = [Term("linear", [v], evidence={}) for v in ("x", "z")]
+    bend = Term("quadratic", ["x"], {"centre": 0.0}, {})
+    sel = _forward_backward(ctx, base, [Candidate("bend (quadratic):x", [bend], "bend", frozenset({"bend:x"}))],
+                            frame, y, set(), n)
+    assert [(t.kind, t.variables) for t in sel.terms] == [("linear", ["x"]), ("quadratic", ["x"])]
+    crit = Criterion(y, "regression", None, "poisson")
+    crit.set_dispersion(frame.to_numpy())
+    assert crit.alpha > 1.0                                  # the counts are overdispersed
+    full = np.column_stack([_columns([t], frame, ctx.fills, ctx.kinds) for t in base + [bend]])
+    added = next(s for s in sel.log if s.get("added") == "bend (quadratic):x")
+    # one bend pool of one candidate: no extended-BIC charge; the bend's coefficient is charged
+    # COUNT_BEND_COST instead of log n. 1e-6 relative: the same fit, recomputed (IRLS stopping rule).
+    assert added["criterion"] == pytest.approx(crit(full) - (np.log(n) - COUNT_BEND_COST), rel=1e-6)
