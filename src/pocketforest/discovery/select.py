@@ -7,7 +7,8 @@ slope that differs by category level (per level where it lives in some levels on
 category × category cells. A candidate enters only if it lowers the extended Bayesian information
 criterion of the GLM on the discovery rows: BIC (Schwarz 1978) plus 2·log(candidates of its kind)
 per entered term (extended BIC with γ = 1, Chen & Chen 2008, Biometrika 95:759-771), so trying many
-pairs does not let chance products in. A backward pass then removes what later entries made
+pairs does not let chance products in. For counts a bend's coefficients cost 2 each (Akaike)
+instead of log n (``COUNT_BEND_COST``). A backward pass then removes what later entries made
 redundant and, given enough rows, main effects the GLM finds empty (a stand-in for a correlated
 variable passes the forest's importance test too), unless a bend or product needs them
 (hierarchy) or the user asked for them.
@@ -260,6 +261,8 @@ class Selection:
     removed_main_effects: list[str]
     #: Pairs tried by the GLM alone (not measured by H²), recorded with the searched pairs.
     screened_pairs: list[dict] = field(default_factory=list)
+    #: Counts: what a bend's coefficient costs instead of log n (None: BIC's log n for every term).
+    bend_cost: float | None = None
 
     def to_dict(self) -> dict:
         return {"rows": self.rows, "steps": self.log, "not_chosen": self.not_chosen,
@@ -267,7 +270,10 @@ class Selection:
                 "rule": ("forward selection from the material main effects: a bend or product enters when it lowers "
                          "the extended BIC (BIC + 2 log(candidates of its kind), Chen & Chen 2008) of the GLM on the "
                          "discovery rows, within the coefficient budget of the estimation rows; then a backward pass "
-                         "removes terms (main effects too, keeping hierarchy and requests) whose removal lowers it")}
+                         "removes terms (main effects too, keeping hierarchy and requests) whose removal lowers it"
+                         + ("" if self.bend_cost is None else
+                            f"; count outcome: a bend's coefficients cost {self.bend_cost:g} each instead of "
+                            "log(rows)"))}
 
 
 def select_terms(ctx: Context, material: list[str], requested: set[str], shapes: dict,
@@ -554,7 +560,7 @@ def _forward_backward(ctx: Context, base: list[Term], candidates: list[Candidate
         for t in by_key[key].terms:
             t.evidence["criterion_drop_on_entry"] = gain
     left = [c.key for c in candidates if c.key not in chosen]
-    return Selection(terms, log, gains, n_rows, left, removed_mains)
+    return Selection(terms, log, gains, n_rows, left, removed_mains, bend_cost=COUNT_BEND_COST if crit.count else None)
 
 
 def _removable(ctx: Context) -> bool:
