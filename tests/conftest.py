@@ -76,7 +76,7 @@ def fitted(tmp_path_factory) -> dict[str, tuple]:
                           ("multiclass", "classification", 3)):
         df = synthetic_table(task=task, n_classes=k)
         table = prepare(df, "y", source=f"{name}.csv")
-        result = distill(table, Settings(trees=60, seed=3, quiet=True, bootstrap=200))
+        result = distill(table, Settings(trees=60, seed=3, quiet=True, bootstrap=200, nested_repeats=1))
         out[name] = (result, Path(result.write(base / name)))
     return out
 

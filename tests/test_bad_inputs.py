@@ -21,7 +21,7 @@ import pytest
 from conftest import run_cli
 
 CORPUS = Path(__file__).parent / "bad_inputs"
-TREES = ["--trees", "10", "-q"]
+TREES = ["--trees", "10", "--nested-repeats", "0", "-q"]
 
 
 def _distill(data, *extra: str, target: str = "y") -> list[str]:
@@ -65,6 +65,7 @@ def _cases(ctx: dict) -> dict[str, tuple[list[str], int]]:
         "split too thin": (_distill(c / "train_valid.csv", "--out", out, "--split", "0.98,0.01,0.01"), 2),
         "negative trees": (["distill", str(c / "train_valid.csv"), "--target", "y", "--trees", "-5", "--out", out], 2),
         "leaf size 0": (_distill(c / "train_valid.csv", "--out", out, "--leaf-size", "0"), 2),
+        "nested repeats negative": (_distill(c / "train_valid.csv", "--out", out, "--nested-repeats", "-1"), 2),
         "max leaves 1": (_distill(c / "train_valid.csv", "--out", out, "--max-leaves", "1"), 2),
         "tree depth 0": (_distill(c / "train_valid.csv", "--out", out, "--tree-depth", "0"), 2),
         "tree leaves 1": (_distill(c / "train_valid.csv", "--out", out, "--tree-leaves", "1"), 2),

@@ -93,6 +93,7 @@ def test_quick_run_is_well_formed(tmp_path):
         assert d["rate_given_test"] is None or d["rate_all"] <= d["rate_given_test"]
     for r in raw["coverage"]:
         assert r["plan"] == "cross-validation" and r["ci_low"] <= r["reported"] <= r["ci_high"]
+        assert r["standard_error"] >= r["naive_standard_error"] > 0
         assert r["covered"] == (r["ci_low"] <= r["true_loss"] <= r["ci_high"]) and -1 < r["true_loss"] < 1
     cov = section.figures[2].detail
     assert cov["runs"] == small.QUICK["coverage"]["regression"] and 0 <= cov["coverage_fitted"] <= 1
@@ -114,7 +115,8 @@ def test_counts_and_tasks_come_from_the_command_line():
     parser = argparse.ArgumentParser()
     small.add_arguments(parser)
     args = parser.parse_args(["--small-null", "250", "--small-tasks", "classification"])
-    assert small.options(args) == {"null": 250, "coverage": None, "seeds": None, "tasks": ("classification",),
+    assert small.options(args) == {"null": 250, "coverage": None, "nested": None, "seeds": None,
+                                   "tasks": ("classification",),
                                    "parts": None, "sizes": None}
     args = parser.parse_args(["--small-parts", "null,threshold", "--small-sizes", "300,800"])
     assert small.options(args)["parts"] == ("null", "threshold") and small.options(args)["sizes"] == (300, 800)
@@ -122,5 +124,8 @@ def test_counts_and_tasks_come_from_the_command_line():
         small.options(parser.parse_args(["--small-parts", "power"]))
     with pytest.raises(InputError, match="--small-seeds"):
         small.options(parser.parse_args(["--small-seeds", "1"]))
+    with pytest.raises(InputError, match="--small-nested"):
+        small.options(parser.parse_args(["--small-nested", "-1"]))
+    assert small.options(parser.parse_args(["--small-nested", "0"]))["nested"] == 0   # the bootstrap, for comparison
     with pytest.raises(InputError, match="--small-tasks"):
         small.options(parser.parse_args(["--small-tasks", "survival"]))

@@ -56,7 +56,7 @@ def test_onnx_matches_python_on_missing_and_unseen(bundles):
     from pocketforest.pipeline import Settings, distill
     from pocketforest.scoring.runtime import Scorer
     df = synthetic_table(n=400, seed=7)
-    result = distill(prepare(df, "y"), Settings(trees=30, seed=1, quiet=True, bootstrap=50))
+    result = distill(prepare(df, "y"), Settings(trees=30, seed=1, quiet=True, bootstrap=50, nested_repeats=0))
     rows = synthetic_table(n=200, seed=8).drop(columns="y")
     rows.loc[::3, "x1"] = np.nan
     rows.loc[::4, "colour"] = np.nan
@@ -136,10 +136,10 @@ def test_existing_bundle_is_not_overwritten_without_force(tmp_path):
     out = tmp_path / "bundle"
     out.mkdir()
     (out / "keep.txt").write_text("mine")
-    r = run_cli("distill", str(src), "--target", "y", "--out", str(out), "--trees", "20", "-q")
+    r = run_cli("distill", str(src), "--target", "y", "--out", str(out), "--trees", "20", "--nested-repeats", "0", "-q")
     assert r.returncode == 2 and "--force" in r.stderr
     assert (out / "keep.txt").read_text() == "mine"
-    r = run_cli("distill", str(src), "--target", "y", "--out", str(out), "--trees", "20", "-q", "--force")
+    r = run_cli("distill", str(src), "--target", "y", "--out", str(out), "--trees", "20", "--nested-repeats", "0", "-q", "--force")
     assert r.returncode == 0, r.stderr
     assert (out / "manifest.json").is_file() and not (out / "keep.txt").exists()
     assert not [p for p in tmp_path.iterdir() if p.name.startswith(".")], "temporary folders left behind"
@@ -219,7 +219,7 @@ def test_two_distill_runs_on_one_out_folder(tmp_path):
     out = tmp_path / "bundle"
     env = dict(os.environ, PYTHONPATH=str(SRC))
     procs = [subprocess.Popen([sys.executable, "-m", "pocketforest", "distill", str(src), "--target", "y",
-                               "--out", str(out), "--trees", "20", "--seed", str(seed), "-q", "--json"],
+                               "--out", str(out), "--trees", "20", "--nested-repeats", "0", "--seed", str(seed), "-q", "--json"],
                               stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=env)
              for seed in (1, 2)]
     results = [(p.wait(timeout=600), p.stdout.read(), p.stderr.read()) for p in procs]

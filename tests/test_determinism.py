@@ -26,7 +26,7 @@ STAMPED = {"forest.onnx", "tree.onnx", "equation.onnx", "report.html", "manifest
 
 def _distill(csv: Path, out: Path, hashseed: str, monkeypatch) -> Path:
     monkeypatch.setenv("PYTHONHASHSEED", hashseed)
-    proc = run_cli("distill", str(csv), "--target", "y", "--trees", "15", "--seed", "11", "--out", str(out), "-q")
+    proc = run_cli("distill", str(csv), "--target", "y", "--trees", "15", "--nested-repeats", "1", "--seed", "11", "--out", str(out), "-q")
     assert proc.returncode == 0, proc.stderr
     return out
 
@@ -65,7 +65,7 @@ def test_same_seed_same_numbers_and_predictions(tmp_path, monkeypatch, task, k):
             np.testing.assert_array_equal(out_a[key], out_b[key], err_msg=f"{model}.onnx {key}")
 
     if task == "regression":  # guard: the equality above must not come from an ignored seed
-        proc = run_cli("distill", str(csv), "--target", "y", "--trees", "15", "--seed", "12",
+        proc = run_cli("distill", str(csv), "--target", "y", "--trees", "15", "--nested-repeats", "1", "--seed", "12",
                        "--out", str(tmp_path / "c"), "-q")
         assert proc.returncode == 0, proc.stderr
         mc = json.loads((tmp_path / "c" / "manifest.json").read_text())

@@ -219,7 +219,7 @@ def test_every_failure_is_one_error_line_and_every_bundle_verifies(t: Table):
         header = [c.name for c in t.columns] + [t.target.name]
         _write(data, header, [_cells(c, t.rows, rng, signal) for c in t.columns] + [_target_cells(t, rng, signal)])
         code, _, err = _run("distill", str(data), f"--target={t.target.name}", "--out", str(out), "--trees", "5",
-                            "--seed", str(t.seed % 1000), "-q", *t.options)
+                            "--nested-repeats", "1", "--seed", str(t.seed % 1000), "-q", *t.options)
         event(f"distill exit {code}")
         if code != 0:
             _assert_clean_failure(code, err, "distill")

@@ -79,7 +79,7 @@ def two_bundles(tmp_path_factory) -> dict[str, Path]:
     for name, rare in (("below", 10), ("above", 12)):
         data = base / f"{name}.csv"
         rare_table(60, rare).to_csv(data, index=False)
-        done = run_cli("distill", str(data), "--target", "y", "--out", str(base / name), "--trees", "15", "--seed", "2")
+        done = run_cli("distill", str(data), "--target", "y", "--out", str(base / name), "--trees", "15", "--nested-repeats", "0", "--seed", "2")
         assert done.returncode == 0, done.stderr
         out[name] = base / name
         out[name + "_stdout"] = done.stdout
@@ -193,7 +193,7 @@ def test_three_classes_count_four_parameters():
     x = rng.uniform(-1, 1, 45)
     y = np.where(np.argsort(np.argsort(x)) < 8, "low", np.where(rng.uniform(size=45) < 0.5, "mid", "high"))
     df = pd.DataFrame({"x": x, "z": rng.normal(size=45), "y": y})
-    result = distill(prepare(df, "y", source="three.csv"), Settings(trees=10, seed=1, quiet=True, bootstrap=50))
+    result = distill(prepare(df, "y", source="three.csv"), Settings(trees=10, seed=1, quiet=True, bootstrap=50, nested_repeats=0))
     d = result.no_equation
     assert result.equation is None and (d.rarest, d.parameters, d.need, d.have) == ("low", 4, 12, 4)
     # 12 rarest-class confirmation rows at a share of 8/45 and half the rows in confirmation: 135

@@ -26,10 +26,16 @@ def test_a_60_row_table_distils_with_the_cross_validation_plan(tmp_path):
     path = r.write(tmp_path / "tiny")
     m = json.loads((tmp_path / "tiny" / "manifest.json").read_text())
     assert m["plan"]["kind"] == "cross-validation" and m["splits"]["test"] == 0
-    # the loss interval says what it is about: the procedure's expected loss, not these models'
-    from pocketforest.pipeline import ESTIMAND_CV
-    assert m["loss"]["equation"]["estimand"] == m["loss"]["tree"]["estimand"] == ESTIMAND_CV
-    assert "expected loss of this modelling procedure" in (tmp_path / "tiny" / "report.html").read_text(encoding="utf-8")
+    # the loss interval says what it is about and how: nested cross-validation, about these models
+    from pocketforest.evaluate import NESTED_METHOD
+    from pocketforest.pipeline import ESTIMAND_TEST
+    for mdl in ("equation", "tree"):
+        lo = m["loss"][mdl]
+        assert lo["estimand"] == ESTIMAND_TEST and lo["method"] == NESTED_METHOD
+        assert lo["nested"]["fits"] == lo["nested"]["repeats"] * 10
+        assert lo["ci_high"] - lo["value"] == pytest.approx(lo["value"] - lo["ci_low"], abs=1e-9)   # about the CV loss
+    assert "nested cross-validation" in (tmp_path / "tiny" / "report.html").read_text(encoding="utf-8")
+    assert "loss intervals: nested cross-validation, 4 x 5 folds (40 refits)" in r.summary()
     from pocketforest.scoring.verify import verify_bundle
     assert all(c.ok for c in verify_bundle(path))
 
@@ -39,7 +45,7 @@ def test_cross_validated_figures_equal_a_hand_written_refit_loop():
     that refits the whole pipeline on each fold's other rows and predicts the fold."""
     df = synthetic_table(n=120, seed=4)
     table = prepare(df, "y", source="small.csv")
-    s = Settings(trees=15, seed=2, quiet=True, bootstrap=50)
+    s = Settings(trees=15, seed=2, quiet=True, bootstrap=50, nested_repeats=0)   # the interval is not checked here
     r = distill(table, s)
     assert r.plan.kind == "cross-validation"
     y = df["y"].to_numpy(dtype=float)
@@ -76,7 +82,8 @@ def test_iris_and_wine_equation_within_five_points_of_the_forest(name):
     d = (load_iris if name == "iris" else load_wine)(as_frame=True)
     df = d.frame.copy()
     df["target"] = np.asarray(d.target_names, dtype=object)[d.target]
-    r = distill(prepare(df, "target", source=f"{name}.csv"), Settings(trees=60, seed=0, quiet=True, bootstrap=100))
+    s = Settings(trees=60, seed=0, quiet=True, bootstrap=100, nested_repeats=0)   # accuracy only: no interval needed
+    r = distill(prepare(df, "target", source=f"{name}.csv"), s)
     ev = r.evaluation
     assert ev["on"] == "cross-validation"
     assert ev["equation"]["accuracy"] >= ev["forest"]["accuracy"] - 0.05, (ev, r.equation.formula)
@@ -125,3 +132,35 @@ def test_a_zero_reaching_a_log_term_is_handled_in_every_form(tmp_path):
     if shutil.which("node") is not None:
         js = runners.run_js_export(tmp_path / "logs" / "equation.js", json_rows)
         np.testing.assert_allclose(js, want, rtol=1e-12)
+
+
+def test_without_nested_repeats_the_interval_is_the_bootstrap_about_the_procedure(tmp_path):
+    df = synthetic_table(n=60, seed=3)
+    r = distill(prepare(df, "y", source="tiny.csv"), Settings(trees=10, seed=1, quiet=True, bootstrap=100,
+                                                              nested_repeats=0))
+    from pocketforest.pipeline import ESTIMAND_CV
+    assert all(lo["estimand"] == ESTIMAND_CV and "nested" not in lo for lo in r.loss.values())
+    r.write(tmp_path / "b")
+    assert "expected loss of this modelling procedure" in (tmp_path / "b" / "report.html").read_text(encoding="utf-8")
+
+
+def test_pair_predictions_equal_a_hand_written_loop_over_pairs_of_folds():
+    """Entry [r, k, i]: row i predicted by the pipeline fitted without row i's fold and fold k."""
+    from pocketforest.resample import pair_predictions
+    df = synthetic_table(n=80, seed=6)
+    table = prepare(df, "y", source="pairs.csv")
+    s = dataclasses.replace(Settings(trees=8, seed=3, quiet=True, bootstrap=20), split=SMALL_SPLIT)
+    folds = np.tile(np.arange(4), 20)[None, :]               # one repeat, 4 folds of 20 rows
+    fit = lambda t, st: _fit_models(t, st, SMALL_SPLIT)      # noqa: E731
+    got = pair_predictions(table, s, folds, fit, ("forest", "equation"))
+    assert got["forest"].shape == (1, 4, 80)
+    j, k = 1, 3
+    train = np.flatnonzero((folds[0] != j) & (folds[0] != k))
+    sub = dataclasses.replace(table, data=table.data.iloc[train].reset_index(drop=True))
+    ref = _fit_models(sub, dataclasses.replace(s, seed=s.seed + 7 * (50_000 + j * 10 + k)), SMALL_SPLIT)
+    for held_fold, left_out in ((j, k), (k, j)):
+        held = np.flatnonzero(folds[0] == held_fold)
+        for m in ("forest", "equation"):
+            want = ref.predict(table.data.iloc[held].reset_index(drop=True), m)
+            np.testing.assert_array_equal(got[m][0, left_out, held], want)   # same fit, same arithmetic
+        assert np.isnan(got["forest"][0, held_fold, held]).all()              # a fold never predicts itself

@@ -64,7 +64,7 @@ def test_sample_and_self_check_are_reproducible_with_the_seed(folder):
     def run(seed):
         d = draw(str(folder / "parts"), "y", 600, seed=seed)
         table = prepare(d.sample, "y", source="parts")
-        r = distill(table, Settings(trees=20, seed=seed, quiet=True, bootstrap=200))
+        r = distill(table, Settings(trees=20, seed=seed, quiet=True, bootstrap=200, nested_repeats=0))
         return d, self_check(r, d.check, "parts")
 
     (d1, c1), (d2, c2), (d3, _) = run(4), run(4), run(5)
@@ -79,7 +79,7 @@ def test_sample_and_self_check_are_reproducible_with_the_seed(folder):
 
 def test_cli_records_the_design_and_the_check_in_manifest_and_report(folder, tmp_path):
     out = tmp_path / "b"
-    r = run_cli("distill", str(folder / "parts" / "*.parquet"), "--target", "y", "--sample", "600", "--trees", "15",
+    r = run_cli("distill", str(folder / "parts" / "*.parquet"), "--target", "y", "--sample", "600", "--trees", "15", "--nested-repeats", "0",
                 "--out", str(out), "-q")
     assert r.returncode == 0, r.stderr
     m = json.loads((out / "manifest.json").read_text())

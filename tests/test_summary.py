@@ -21,7 +21,7 @@ def runs(tmp_path_factory):
     synthetic_table(n=300, seed=21).to_csv(data, index=False)
     out = {}
     for mode in ("text", "json"):
-        args = ["distill", str(data), "--target", "y", "--trees", "30", "--seed", "4", "-q",
+        args = ["distill", str(data), "--target", "y", "--trees", "30", "--nested-repeats", "0", "--seed", "4", "-q",
                 "--out", str(base / mode)]
         buf = io.StringIO()
         with contextlib.redirect_stdout(buf):

@@ -37,3 +37,8 @@ TREE_LEAVES = 12
 TREE_MARGIN = 0.02
 #: The size/fidelity frontier runs from 2 leaves to this many (or to the cap, if larger).
 FRONTIER_LEAVES = 64
+
+#: Small-data plan: repeats of the nested cross-validation behind the loss interval (each repeat
+#: refits the whole pipeline K (K - 1) / 2 = 10 times at 5 folds). ``bench --small`` measures the
+#: interval's coverage with it (docs/performance.md, "Small data").
+NESTED_REPEATS = 4

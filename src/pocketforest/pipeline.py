@@ -19,10 +19,10 @@ from .defaults import TREE_MARGIN, TREES
 from .design import fill_values, make_preprocessor, model_frame
 from .discovery import Discovery, Requests, discover
 from .equation import EquationFit, check_family, coefficient_budget, fit_equation, refit_for_scoring
-from .evaluate import fidelity, loss_with_interval, metrics
+from .evaluate import fidelity, loss_with_interval, metrics, nested_cv_interval
 from .forest import ForestFit, fit_forest
 from .importance import Importance, oob_increases, summarise
-from .resample import Plan, choose_plan, fold_assignments, out_of_fold
+from .resample import NESTED_REPEATS, Plan, choose_plan, fold_assignments, out_of_fold, pair_predictions
 from .sizing import NoEquation, anticipated_r2, equation_support
 from .features import Table
 from .split import Splits, make_splits
@@ -45,6 +45,9 @@ class Settings:
     family: str | None = None
     robust: bool = False
     bootstrap: int = 1000
+    #: Small-data plan: repeats of the nested cross-validation behind the loss interval; 0 keeps the
+    #: paired bootstrap over out-of-fold rows (faster; about the procedure's expected loss only).
+    nested_repeats: int = NESTED_REPEATS
     quiet: bool = False
     synthetic_rows: int = 0          # extra forest-labelled rows for the surrogate tree (Breiman & Shang 1996)
     cap_terms: bool = True           # drop terms the confirmation rows cannot estimate at all
@@ -74,6 +77,7 @@ class Distillation:
     plan: Plan | None = None
     #: Cross-validation only: the fold of every row in every repeat ([repeats, rows]).
     fold_assignment: np.ndarray | None = None
+    nested_assignment: np.ndarray | None = None   # the nested cross-validation's folds (loss intervals)
 
     @property
     def folds(self) -> list[tuple[np.ndarray, np.ndarray]] | None:
@@ -332,6 +336,27 @@ def _judge_by_cross_validation(r: Distillation, plan: Plan) -> None:
                                        resamples=r.settings.bootstrap, seed=r.settings.seed, groups=groups),
                   "estimand": ESTIMAND_CV}
               for m in models[1:]}
+    folds = int(r.fold_assignment.max()) + 1
+    if r.settings.nested_repeats > 0 and folds >= 4:   # 3 folds would leave the inner fits a third of the rows
+        _nested_intervals(r, plan, y, stacked, folds, inner, models)
+
+
+def _nested_intervals(r: Distillation, plan: Plan, y: np.ndarray, stacked: dict, folds: int, inner: Settings,
+                      models: tuple[str, ...]) -> None:
+    """Replace each headline loss interval by nested cross-validation's, which covers the loss of
+    the bundle's own models (:func:`evaluate.nested_cv_interval`); the other metrics keep the
+    bootstrap's."""
+    s = r.settings
+    nested = dataclasses.replace(plan, folds=folds, repeats=s.nested_repeats)
+    _say(s, f"loss intervals by nested cross-validation: {s.nested_repeats} x {folds * (folds - 1) // 2} refits")
+    r.nested_assignment = fold_assignments(y, r.table.task, nested, s.seed + 500)
+    pairs = pair_predictions(r.table, inner, r.nested_assignment,
+                             lambda t, st: _fit_models(t, st, plan.split, equation="equation" in models), models)
+    for m in models[1:]:
+        iv = nested_cv_interval(y, pairs["forest"], pairs[m], r.nested_assignment, stacked["forest"], stacked[m],
+                                r.table.task, r.classes, level=r.loss[m]["level"], seed=s.seed)
+        if iv is not None:
+            r.loss[m].update(iv, estimand=ESTIMAND_TEST, also_method="paired percentile bootstrap")
 
 
 def _judge(r: Distillation, test: pd.DataFrame, y_t: np.ndarray) -> None:

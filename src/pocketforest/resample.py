@@ -17,6 +17,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .defaults import NESTED_REPEATS  # noqa: F401  (the nested cross-validation's repeats)
+
 #: Below this many rows the small-data plan applies. docs/performance.md ("Small data") has the
 #: simulation of both plans by size (`bench --small`): the split plan's reported figures are
 #: noisier than cross-validation's at 500 rows and stop losing from about 800.
@@ -70,6 +72,12 @@ def fold_assignments(y: np.ndarray, task: str, plan: Plan, seed: int) -> np.ndar
     return out
 
 
+def _refit(table, inner, train: np.ndarray, seed: int, fit_models):
+    """The whole pipeline fitted on the rows ``train`` only."""
+    sub = dataclasses.replace(table, data=table.data.iloc[train].reset_index(drop=True))
+    return fit_models(sub, dataclasses.replace(inner, seed=seed))
+
+
 def out_of_fold(table, settings, folds: np.ndarray, fit_models, tree_curves: list | None = None,
                 models: tuple[str, ...] = ("forest", "tree", "equation")) -> dict[str, np.ndarray]:
     """Every model's prediction for every row from the pipeline refitted without that row's fold.
@@ -88,9 +96,8 @@ def out_of_fold(table, settings, folds: np.ndarray, fit_models, tree_curves: lis
         per_model: dict[str, np.ndarray | None] = {m: None for m in preds}
         for k in np.unique(folds[r]):
             held = np.flatnonzero(folds[r] == k)
-            train = np.flatnonzero(folds[r] != k)
-            sub = dataclasses.replace(table, data=table.data.iloc[train].reset_index(drop=True))
-            fit = fit_models(sub, dataclasses.replace(inner, seed=settings.seed + 7 * (r * 100 + int(k) + 1)))
+            fit = _refit(table, inner, np.flatnonzero(folds[r] != k), settings.seed + 7 * (r * 100 + int(k) + 1),
+                         fit_models)
             rows = table.data.iloc[held].reset_index(drop=True)
             if tree_curves is not None:
                 X = model_frame(rows, table.features)
@@ -103,3 +110,35 @@ def out_of_fold(table, settings, folds: np.ndarray, fit_models, tree_curves: lis
         for m in preds:
             preds[m].append(per_model[m])
     return {m: np.stack(v) for m, v in preds.items()}
+
+
+def pair_predictions(table, settings, folds: np.ndarray, fit_models,
+                     models: tuple[str, ...] = ("forest", "tree", "equation")) -> dict[str, np.ndarray]:
+    """The fits nested cross-validation needs: the whole pipeline refitted without each pair of folds.
+
+    Returns {model: [repeats, K, n, ...]}: entry [r, k, i] is the prediction for row i from the
+    pipeline fitted without row i's fold and fold k of repeat r (NaN for the rows of fold k). For a
+    fixed k this is the ordinary (K-1)-fold cross-validation of the rows outside fold k, which is
+    what nested cross-validation's inner loop needs; K (K - 1) / 2 fits per repeat serve every k
+    (each fit without folds j and k predicts both). Used by :func:`evaluate.nested_cv_interval`.
+    """
+    n = len(table.data)
+    inner = dataclasses.replace(settings, quiet=True)
+    repeats = folds.shape[0]
+    out: dict[str, np.ndarray | None] = {m: None for m in models}
+    for r in range(repeats):
+        ks = np.unique(folds[r])
+        for a_i, j in enumerate(ks):
+            for k in ks[a_i + 1:]:
+                train = np.flatnonzero((folds[r] != j) & (folds[r] != k))
+                fit = _refit(table, inner, train, settings.seed + 7 * (50_000 + r * 100 + int(j) * 10 + int(k)),
+                             fit_models)
+                for held_fold, left_out in ((j, k), (k, j)):
+                    held = np.flatnonzero(folds[r] == held_fold)
+                    rows = table.data.iloc[held].reset_index(drop=True)
+                    for m in models:
+                        p = np.asarray(fit.predict(rows, m), dtype=float)
+                        if out[m] is None:
+                            out[m] = np.full((repeats, len(ks), n) + p.shape[1:], np.nan)
+                        out[m][r, int(left_out), held] = p
+    return out

@@ -92,6 +92,10 @@ def format_summary(d: dict) -> str:
     table = aligned_columns(rows, right)
     rule = "-" * max(len(line) for line in table)
     lines += [table[0], rule] + table[1:]
+    nested = [lo["nested"] for lo in d["loss"].values() if "nested" in lo]
+    if nested:
+        lines.append(f"loss intervals: nested cross-validation, {nested[0]['repeats']} x {nested[0]['folds']} folds "
+                     f"({nested[0]['fits']} refits), about the bundle's own models")
     equation = d["formula"] if not d.get("equation_absent") else "none: " + d["equation_absent"]["reason"]
     lines += ["", f"equation: {equation}", f"tree:     depth {d['tree']['depth']}, {d['tree']['leaves']} leaves"]
     if d.get("sample"):

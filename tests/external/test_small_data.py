@@ -47,7 +47,7 @@ def _run(df, target, tmp_path, name, monkeypatch=None, **settings):
     if monkeypatch is not None:
         monkeypatch.setattr(pipeline, "discover", _ranked_discovery)
     table = prepare(df, target, source=f"{name}.csv")
-    r = distill(table, Settings(trees=40, seed=2, quiet=True, bootstrap=1000, **settings))
+    r = distill(table, Settings(trees=40, seed=2, quiet=True, bootstrap=1000, nested_repeats=0, **settings))
     path = r.write(tmp_path / name)
     manifest = json.loads((tmp_path / name / "manifest.json").read_text())
     jsonschema.Draft202012Validator(SCHEMA).validate(manifest)

@@ -206,7 +206,7 @@ def test_a_printer_whose_missing_texts_drift_fails_verify(tmp_path, monkeypatch)
     from pocketforest.intake.values import MISSING_TOKENS
     from pocketforest.pipeline import Settings, distill
     r = distill(prepare(synthetic_table(n=300, seed=9), "y", source="drift.csv"),
-                Settings(trees=20, seed=1, quiet=True, bootstrap=50))
+                Settings(trees=20, seed=1, quiet=True, bootstrap=50, nested_repeats=0))
     for module in (pycode, jscode, sql):
         monkeypatch.setattr(module, "MISSING_TOKENS", MISSING_TOKENS - {"NA", "null"})
     checks = verify.verify_bundle(r.write(tmp_path / "drifted"), quiet=True)

@@ -412,7 +412,8 @@ def anchor_one(ds: Dataset, seed: int, trees: int) -> dict:
 
     t0 = time.perf_counter()
     table = prepare(ds.build(), ds.target, task=ds.task, categorical=ds.categorical, source=ds.name)
-    result = pipeline.distill(table, settings(trees=trees, seed=seed, quiet=True, bootstrap=BOOTSTRAP))
+    # the anchor reads the equation's held-out metric, never a loss interval: no nested refits
+    result = pipeline.distill(table, settings(trees=trees, seed=seed, quiet=True, bootstrap=BOOTSTRAP, nested_repeats=0))
     plan, notes = _plan_of(result), []
     folds = None
     if plan != "test":
@@ -421,7 +422,7 @@ def anchor_one(ds: Dataset, seed: int, trees: int) -> dict:
             notes.append(f"the pipeline judged by {plan} without exposing its folds: rerun with the "
                          f"three-way split forced, Settings(split={FORCED_SPLIT})")
             result = pipeline.distill(table, settings(trees=trees, seed=seed, quiet=True, bootstrap=BOOTSTRAP,
-                                              split=FORCED_SPLIT))
+                                                      nested_repeats=0, split=FORCED_SPLIT))
             plan = "forced three-way split" if _plan_of(result) == "test" else _plan_of(result) + " (forcing failed)"
     data = result.table.data.reset_index(drop=True)
     task, classes = result.table.task, result.classes
