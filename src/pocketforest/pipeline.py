@@ -316,17 +316,21 @@ def _judge_by_cross_validation(r: Distillation, plan: Plan) -> None:
     inner = dataclasses.replace(r.settings, split=plan.split)
     curves: list = []
     models = r.models
-    oof = out_of_fold(table, inner, r.fold_assignment,
-                      lambda t, st: _fit_models(t, st, plan.split, equation="equation" in models), curves, models)
+
+    def refit(t: Table, st: Settings) -> Distillation:   # every refit fits what the bundle holds
+        return _fit_models(t, st, plan.split, equation="equation" in models)
+
+    oof = out_of_fold(table, inner, r.fold_assignment, refit, curves, models)
     if curves:   # the tree's size/fidelity frontier, averaged over the folds' held-out rows
         r.tree.record_held_out(mean_frontier([c[0] for c in curves]), mean_frontier([c[1] for c in curves], key="depth"),
                                on="cross-validation")
     repeats, n = r.fold_assignment.shape
+    folds = int(r.fold_assignment.max()) + 1
     stacked = {m: p.reshape((repeats * n,) + p.shape[2:]) for m, p in oof.items()}
     y_s = np.tile(y, repeats)
     groups = np.tile(np.arange(n), repeats)
     apparent = {m: metrics(y, r.predict(table.data, m), task, classes) for m in models}
-    r.evaluation = {"on": "cross-validation", "folds": int(r.fold_assignment.max()) + 1, "repeats": int(repeats),
+    r.evaluation = {"on": "cross-validation", "folds": folds, "repeats": int(repeats),
                     "n": int(n), "method": "repeated k-fold cross-validation of the whole pipeline "
                                            "(forest, discovery, equation and tree refitted in every fold)",
                     **{m: metrics(y_s, p, task, classes) for m, p in stacked.items()},
@@ -336,13 +340,12 @@ def _judge_by_cross_validation(r: Distillation, plan: Plan) -> None:
                                        resamples=r.settings.bootstrap, seed=r.settings.seed, groups=groups),
                   "estimand": ESTIMAND_CV}
               for m in models[1:]}
-    folds = int(r.fold_assignment.max()) + 1
     if r.settings.nested_repeats > 0 and folds >= 4:   # 3 folds would leave the inner fits a third of the rows
-        _nested_intervals(r, plan, y, stacked, folds, inner, models)
+        _nested_intervals(r, plan, y, stacked, folds, inner, refit)
 
 
 def _nested_intervals(r: Distillation, plan: Plan, y: np.ndarray, stacked: dict, folds: int, inner: Settings,
-                      models: tuple[str, ...]) -> None:
+                      refit) -> None:
     """Replace each headline loss interval by nested cross-validation's, which covers the loss of
     the bundle's own models (:func:`evaluate.nested_cv_interval`); the other metrics keep the
     bootstrap's."""
@@ -350,8 +353,8 @@ def _nested_intervals(r: Distillation, plan: Plan, y: np.ndarray, stacked: dict,
     nested = dataclasses.replace(plan, folds=folds, repeats=s.nested_repeats)
     _say(s, f"loss intervals by nested cross-validation: {s.nested_repeats} x {folds * (folds - 1) // 2} refits")
     r.nested_assignment = fold_assignments(y, r.table.task, nested, s.seed + 500)
-    pairs = pair_predictions(r.table, inner, r.nested_assignment,
-                             lambda t, st: _fit_models(t, st, plan.split, equation="equation" in models), models)
+    models = r.models
+    pairs = pair_predictions(r.table, inner, r.nested_assignment, refit, models)
     for m in models[1:]:
         iv = nested_cv_interval(y, pairs["forest"], pairs[m], r.nested_assignment, stacked["forest"], stacked[m],
                                 r.table.task, r.classes, level=r.loss[m]["level"], seed=s.seed)
