@@ -79,8 +79,9 @@ def test_quick_run_is_well_formed(tmp_path):
     names = [f.name for f in section.figures]
     assert names == ["small: null rejection | block test, regression 150 rows",
                      "small: null rejection | block test, regression 300 rows",
-                     "small: loss coverage, fitted models' loss, regression 150 rows",
-                     "small: loss coverage, expected loss, regression 150 rows",
+                     "small: loss coverage, fitted models' loss, interval on the confirmation rows, regression 150 rows",
+                     "small: loss coverage, expected loss, cross-validated interval, regression 150 rows",
+                     "small: loss coverage, fitted models' loss, cross-validated interval, regression 150 rows",
                      "small: rows from which the split plan holds, regression"]
     assert len(raw["null"]) == 2 * small.QUICK["null"]
     for r in raw["null"]:
@@ -95,8 +96,12 @@ def test_quick_run_is_well_formed(tmp_path):
         assert r["plan"] == "cross-validation" and r["ci_low"] <= r["reported"] <= r["ci_high"]
         assert r["standard_error"] >= r["naive_standard_error"] > 0
         assert r["covered"] == (r["ci_low"] <= r["true_loss"] <= r["ci_high"]) and -1 < r["true_loss"] < 1
+        assert r["covered_own"] == (r["own_low"] <= r["true_loss"] <= r["own_high"])
+        assert r["own_low"] <= r["own_value"] <= r["own_high"]
     cov = section.figures[2].detail
     assert cov["runs"] == small.QUICK["coverage"]["regression"] and 0 <= cov["coverage_fitted"] <= 1
+    assert 0 <= cov["coverage_own"] <= 1 and cov["own_width"] > 0
+    assert section.figures[4].passed is None    # the procedure's interval is not judged against the fitted loss
     assert [(r["n"], r["split"]["plan"], r["cv"]["plan"]) for r in raw["threshold"]] == [
         (n, "test", "cross-validation") for n in small.QUICK_THRESHOLD_SIZES]
     for r in raw["threshold"]:

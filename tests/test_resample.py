@@ -26,16 +26,22 @@ def test_a_60_row_table_distils_with_the_cross_validation_plan(tmp_path):
     path = r.write(tmp_path / "tiny")
     m = json.loads((tmp_path / "tiny" / "manifest.json").read_text())
     assert m["plan"]["kind"] == "cross-validation" and m["splits"]["test"] == 0
-    # the loss interval says what it is about and how: nested cross-validation, about these models
-    from pocketforest.evaluate import NESTED_METHOD
-    from pocketforest.pipeline import ESTIMAND_TEST
+    # each loss interval says what it is about and how: the cross-validated one (nested
+    # cross-validation) about the procedure, the confirmation rows' one about these models
+    from pocketforest.evaluate import ESTIMAND_CV, ESTIMAND_TEST, NESTED_METHOD
     for mdl in ("equation", "tree"):
         lo = m["loss"][mdl]
-        assert lo["estimand"] == ESTIMAND_TEST and lo["method"] == NESTED_METHOD
+        assert lo["estimand"] == ESTIMAND_CV and lo["method"] == NESTED_METHOD
         assert lo["nested"]["fits"] == lo["nested"]["repeats"] * 10
         assert lo["ci_high"] - lo["value"] == pytest.approx(lo["value"] - lo["ci_low"], abs=1e-9)   # about the CV loss
-    assert "nested cross-validation" in (tmp_path / "tiny" / "report.html").read_text(encoding="utf-8")
-    assert "loss intervals: nested cross-validation, 4 x 5 folds (40 refits)" in r.summary()
+        own = lo["bundle_models"]
+        assert own["estimand"] == ESTIMAND_TEST and own["rows"] == m["splits"]["confirmation"]
+        assert own["ci_low"] <= own["value"] <= own["ci_high"]
+    assert m["loss"]["tree"]["bundle_models"]["refits"] == 0 and m["loss"]["equation"]["bundle_models"]["refits"] > 0
+    report = (tmp_path / "tiny" / "report.html").read_text(encoding="utf-8")
+    assert "nested cross-validation" in report and "these models (30 confirmation rows)" in report
+    assert "loss intervals: nested cross-validation, 4 x 5 folds (40 refits), about the procedure" in r.summary()
+    assert "these models' loss, on the 30 confirmation rows: tree" in r.summary()
     from pocketforest.scoring.verify import verify_bundle
     assert all(c.ok for c in verify_bundle(path))
 
@@ -138,7 +144,7 @@ def test_without_nested_repeats_the_interval_is_the_bootstrap_about_the_procedur
     df = synthetic_table(n=60, seed=3)
     r = distill(prepare(df, "y", source="tiny.csv"), Settings(trees=10, seed=1, quiet=True, bootstrap=100,
                                                               nested_repeats=0))
-    from pocketforest.pipeline import ESTIMAND_CV
+    from pocketforest.evaluate import ESTIMAND_CV
     assert all(lo["estimand"] == ESTIMAND_CV and "nested" not in lo for lo in r.loss.values())
     r.write(tmp_path / "b")
     assert "expected loss of this modelling procedure" in (tmp_path / "b" / "report.html").read_text(encoding="utf-8")

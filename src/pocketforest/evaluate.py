@@ -77,6 +77,11 @@ def _proba(pred: np.ndarray) -> np.ndarray:
     return proba / proba.sum(axis=1, keepdims=True)
 
 
+def outcome_values(y: np.ndarray, task: str) -> np.ndarray:
+    """The outcome as every metric here reads it: floats, or class labels as text."""
+    return y.astype(float) if task == "regression" else y.astype(str).astype(object)
+
+
 def loss_metric(task: str) -> str:
     return "r2" if task == "regression" else "accuracy"
 
@@ -177,6 +182,15 @@ def loss_with_interval(y: np.ndarray, forest_pred: np.ndarray, other_pred: np.nd
 
 def _signed(metric: str, forest, other):
     return forest - other if HIGHER_IS_BETTER[metric] else other - forest
+
+
+#: What a loss interval is about. On test rows: the bundle's own models. Under cross-validation the
+#: headline is about the expected loss of the modelling procedure at this many rows, which is what
+#: cross-validation estimates (Bates, Hastie & Tibshirani 2024, J Am Stat Assoc); the loss of the
+#: bundle's own models is judged on the confirmation rows beside it (:mod:`pocketforest.own_loss`,
+#: the entry's ``bundle_models``). Coverage of both: ``bench --small``, docs/performance.md.
+ESTIMAND_TEST = "loss of the bundle's models"
+ESTIMAND_CV = "expected loss of the modelling procedure at this many rows"
 
 
 NESTED_METHOD = "nested cross-validation (Bates, Hastie & Tibshirani 2024)"

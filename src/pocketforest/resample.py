@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import dataclasses
 from dataclasses import dataclass
+from typing import Callable
 
 import numpy as np
 
@@ -78,6 +79,75 @@ def _refit(table, inner, train: np.ndarray, seed: int, fit_models):
     return fit_models(sub, dataclasses.replace(inner, seed=seed))
 
 
+#: ``fit_predict(train, held, key)``: fit on the row positions ``train``, and return for each array
+#: of row positions in ``held`` a {model: predictions} dict. ``key`` names the fit: (repeat, fold)
+#: in :func:`fold_loop`, (repeat, fold j, fold k) in :func:`pair_loop`; callers derive seeds from it.
+FitPredict = Callable[[np.ndarray, list, tuple], list]
+
+
+def fold_loop(n: int, folds: np.ndarray, fit_predict: FitPredict) -> dict[str, np.ndarray]:
+    """Out-of-fold predictions: {model: [repeats, n, ...]}, row i predicted by the fit without its fold.
+
+    The one cross-validation loop: the whole pipeline's refits (:func:`out_of_fold`) and the
+    bundle's fixed equation terms re-estimated on the confirmation rows (:mod:`pocketforest.own_loss`)."""
+    out: dict[str, np.ndarray] = {}
+    for r in range(folds.shape[0]):
+        for k in np.unique(folds[r]):
+            held = np.flatnonzero(folds[r] == k)
+            for m, p in fit_predict(np.flatnonzero(folds[r] != k), [held], (r, int(k)))[0].items():
+                p = np.asarray(p, dtype=float)
+                if m not in out:
+                    out[m] = np.zeros((folds.shape[0], n) + p.shape[1:])
+                out[m][r, held] = p
+    return out
+
+
+def pair_loop(n: int, folds: np.ndarray, fit_predict: FitPredict) -> dict[str, np.ndarray]:
+    """The fits nested cross-validation needs: {model: [repeats, K, n, ...]}.
+
+    Entry [r, k, i] is the prediction for row i from the fit without row i's fold and fold k of
+    repeat r (NaN for the rows of fold k). For a fixed k this is the ordinary (K-1)-fold
+    cross-validation of the rows outside fold k, which is what nested cross-validation's inner loop
+    needs; K (K - 1) / 2 fits per repeat serve every k (each fit without folds j and k predicts
+    both). Read by :func:`evaluate.nested_cv_interval`.
+    """
+    repeats = folds.shape[0]
+    out: dict[str, np.ndarray] = {}
+    for r in range(repeats):
+        ks = np.unique(folds[r])
+        for a_i, j in enumerate(ks):
+            for k in ks[a_i + 1:]:
+                train = np.flatnonzero((folds[r] != j) & (folds[r] != k))
+                helds = [np.flatnonzero(folds[r] == j), np.flatnonzero(folds[r] == k)]
+                for (held, left_out), preds in zip(zip(helds, (k, j)), fit_predict(train, helds, (r, int(j), int(k)))):
+                    for m, p in preds.items():
+                        p = np.asarray(p, dtype=float)
+                        if m not in out:
+                            out[m] = np.full((repeats, len(ks), n) + p.shape[1:], np.nan)
+                        out[m][r, int(left_out), held] = p
+    return out
+
+
+def _pipeline_fit_predict(table, settings, fit_models, models: tuple[str, ...], seed_of,
+                          tree_curves: list | None = None) -> FitPredict:
+    """:data:`FitPredict` for the whole pipeline refitted on a subset of the table's rows."""
+    from .design import model_frame
+    from .surrogate import depth_fidelity, frontier_fidelity
+    inner = dataclasses.replace(settings, quiet=True)
+
+    def fit_predict(train: np.ndarray, helds: list, key: tuple) -> list:
+        fit = _refit(table, inner, train, seed_of(key), fit_models)
+        out = []
+        for held in helds:
+            rows = table.data.iloc[held].reset_index(drop=True)
+            if tree_curves is not None:
+                X = model_frame(rows, table.features)
+                tree_curves.append((frontier_fidelity(fit.tree, fit.forest, X), depth_fidelity(fit.tree, fit.forest, X)))
+            out.append({m: fit.predict(rows, m) for m in models})
+        return out
+    return fit_predict
+
+
 def out_of_fold(table, settings, folds: np.ndarray, fit_models, tree_curves: list | None = None,
                 models: tuple[str, ...] = ("forest", "tree", "equation")) -> dict[str, np.ndarray]:
     """Every model's prediction for every row from the pipeline refitted without that row's fold.
@@ -87,58 +157,17 @@ def out_of_fold(table, settings, folds: np.ndarray, fit_models, tree_curves: lis
     held-out rows, for the tree's size/fidelity frontier. ``models``: those the bundle holds (no
     equation figures when the rows could not support one; every fold then fits none either).
     """
-    from .design import model_frame
-    from .surrogate import depth_fidelity, frontier_fidelity
-    n = len(table.data)
-    preds: dict[str, list] = {m: [] for m in models}
-    inner = dataclasses.replace(settings, quiet=True)
-    for r in range(folds.shape[0]):
-        per_model: dict[str, np.ndarray | None] = {m: None for m in preds}
-        for k in np.unique(folds[r]):
-            held = np.flatnonzero(folds[r] == k)
-            fit = _refit(table, inner, np.flatnonzero(folds[r] != k), settings.seed + 7 * (r * 100 + int(k) + 1),
-                         fit_models)
-            rows = table.data.iloc[held].reset_index(drop=True)
-            if tree_curves is not None:
-                X = model_frame(rows, table.features)
-                tree_curves.append((frontier_fidelity(fit.tree, fit.forest, X), depth_fidelity(fit.tree, fit.forest, X)))
-            for m in preds:
-                p = np.asarray(fit.predict(rows, m), dtype=float)
-                if per_model[m] is None:
-                    per_model[m] = np.zeros((n,) + p.shape[1:])
-                per_model[m][held] = p
-        for m in preds:
-            preds[m].append(per_model[m])
-    return {m: np.stack(v) for m, v in preds.items()}
+    def seed_of(key: tuple) -> int:
+        r, k = key
+        return settings.seed + 7 * (r * 100 + k + 1)
+    return fold_loop(len(table.data), folds, _pipeline_fit_predict(table, settings, fit_models, models, seed_of,
+                                                                   tree_curves))
 
 
 def pair_predictions(table, settings, folds: np.ndarray, fit_models,
                      models: tuple[str, ...] = ("forest", "tree", "equation")) -> dict[str, np.ndarray]:
-    """The fits nested cross-validation needs: the whole pipeline refitted without each pair of folds.
-
-    Returns {model: [repeats, K, n, ...]}: entry [r, k, i] is the prediction for row i from the
-    pipeline fitted without row i's fold and fold k of repeat r (NaN for the rows of fold k). For a
-    fixed k this is the ordinary (K-1)-fold cross-validation of the rows outside fold k, which is
-    what nested cross-validation's inner loop needs; K (K - 1) / 2 fits per repeat serve every k
-    (each fit without folds j and k predicts both). Used by :func:`evaluate.nested_cv_interval`.
-    """
-    n = len(table.data)
-    inner = dataclasses.replace(settings, quiet=True)
-    repeats = folds.shape[0]
-    out: dict[str, np.ndarray | None] = {m: None for m in models}
-    for r in range(repeats):
-        ks = np.unique(folds[r])
-        for a_i, j in enumerate(ks):
-            for k in ks[a_i + 1:]:
-                train = np.flatnonzero((folds[r] != j) & (folds[r] != k))
-                fit = _refit(table, inner, train, settings.seed + 7 * (50_000 + r * 100 + int(j) * 10 + int(k)),
-                             fit_models)
-                for held_fold, left_out in ((j, k), (k, j)):
-                    held = np.flatnonzero(folds[r] == held_fold)
-                    rows = table.data.iloc[held].reset_index(drop=True)
-                    for m in models:
-                        p = np.asarray(fit.predict(rows, m), dtype=float)
-                        if out[m] is None:
-                            out[m] = np.full((repeats, len(ks), n) + p.shape[1:], np.nan)
-                        out[m][r, int(left_out), held] = p
-    return out
+    """:func:`pair_loop` over the whole pipeline: every pair of folds left out of a refit."""
+    def seed_of(key: tuple) -> int:
+        r, j, k = key
+        return settings.seed + 7 * (50_000 + r * 100 + j * 10 + k)
+    return pair_loop(len(table.data), folds, _pipeline_fit_predict(table, settings, fit_models, models, seed_of))

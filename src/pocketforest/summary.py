@@ -95,7 +95,13 @@ def format_summary(d: dict) -> str:
     nested = [lo["nested"] for lo in d["loss"].values() if "nested" in lo]
     if nested:
         lines.append(f"loss intervals: nested cross-validation, {nested[0]['repeats']} x {nested[0]['folds']} folds "
-                     f"({nested[0]['fits']} refits), about the bundle's own models")
+                     f"({nested[0]['fits']} refits), about the procedure at this many rows")
+    own = {m: lo["bundle_models"] for m, lo in d["loss"].items() if "bundle_models" in lo}
+    if own:
+        rows = next(iter(own.values()))["rows"]
+        lines.append(f"these models' loss, on the {rows} confirmation rows: " + ", ".join(
+            f"{m} {_f(b['value'], '+.4f')} ({_f(b['ci_low'], '+.4f')} to {_f(b['ci_high'], '+.4f')})"
+            for m, b in own.items()))
     equation = d["formula"] if not d.get("equation_absent") else "none: " + d["equation_absent"]["reason"]
     lines += ["", f"equation: {equation}", f"tree:     depth {d['tree']['depth']}, {d['tree']['leaves']} leaves"]
     if d.get("sample"):

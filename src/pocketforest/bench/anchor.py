@@ -394,8 +394,8 @@ def _score(y, pred, task, classes) -> dict[str, float]:
 
 
 def _truth(data: pd.DataFrame, target: str, task: str) -> np.ndarray:
-    y = data[target].to_numpy()
-    return y.astype(float) if task == "regression" else y.astype(str).astype(object)
+    from ..evaluate import outcome_values
+    return outcome_values(data[target].to_numpy(), task)
 
 
 def _codes(y: np.ndarray, task: str, classes) -> np.ndarray:

@@ -198,19 +198,24 @@ def _sample(m: dict) -> str:
 def _cv_interval_text(loss: dict) -> str:
     """What the small-data loss intervals are about, read from how they were computed."""
     nested = [lo["nested"] for lo in loss.values() if "nested" in lo]
+    own = [lo["bundle_models"] for lo in loss.values() if "bundle_models" in lo]
     if nested:
         nv = nested[0]
-        return ("The loss intervals come from nested cross-validation (Bates, Hastie &amp; Tibshirani 2024): "
-                f"{nv['repeats']} repeats of {nv['folds']} folds, {nv['fits']} more refits of the whole pipeline, "
-                "measure how far a cross-validated loss strays from the loss of the models it judges, so they are "
-                "about the bundle's own models; the other metrics' intervals are a bootstrap over the held-out "
-                "rows. At 150 rows such intervals covered the fitted models' loss in about 95% of simulated "
-                "binary tables but only about 77% of simulated numeric ones, where whether the few rows "
-                "revealed a bend decides the loss (docs/performance.md, \u201cSmall data\u201d): read them as "
-                "a lower bound on the uncertainty.")
-    return ("The loss intervals describe the expected loss of this modelling procedure on tables of this size, which "
-            "is what cross-validation estimates (Bates, Hastie &amp; Tibshirani 2024). They hold the fold "
-            "refits fixed, so they are narrower than the uncertainty about these particular models.")
+        text = ("The cross-validated loss intervals come from nested cross-validation (Bates, Hastie &amp; Tibshirani "
+                f"2024): {nv['repeats']} repeats of {nv['folds']} folds, {nv['fits']} more refits of the whole "
+                "pipeline. They are about the expected loss of this modelling procedure on tables of this size; the "
+                "other metrics' intervals are a bootstrap over the held-out rows.")
+    else:
+        text = ("The cross-validated loss intervals describe the expected loss of this modelling procedure on tables "
+                "of this size, which is what cross-validation estimates (Bates, Hastie &amp; Tibshirani 2024). They "
+                "hold the fold refits fixed, so they are narrower than the uncertainty about these particular "
+                "models.")
+    if own:
+        text += (f" What <i>these</i> models give up is judged on the {own[0]['rows']} confirmation rows, which "
+                 "chose nothing: the forest and the tree as exported, the equation's terms re-estimated without "
+                 "each tenth of those rows (nested cross-validation over those refits gives its interval). "
+                 "Those are the figures to quote for the bundle.")
+    return text
 
 
 def _scoreboard(m: dict) -> str:
@@ -247,11 +252,20 @@ def _scoreboard(m: dict) -> str:
         parts.append(_absent("There is no equation to score (see “The equation”): only the forest and the tree "
                              "are judged."))
     rows = []
+    own = all("bundle_models" in m["loss"][mdl] for mdl in models_of(m)[1:])
     for mdl in models_of(m)[1:]:
         lo = m["loss"][mdl]
         fid = ", ".join(f"{k} {_num(v, 3)}" for k, v in m["fidelity"][mdl].items())
         rows.append([mdl, fid, f"{lo['value']:+.4f}", f"{lo['ci_low']:+.4f} to {lo['ci_high']:+.4f}"])
-    parts.append(_table(["surrogate", "fidelity to the forest", f"loss in {key}", "95% interval"], rows))
+        if own:
+            b = lo["bundle_models"]
+            rows[-1] += [f"{b['value']:+.4f}", f"{b['ci_low']:+.4f} to {b['ci_high']:+.4f}"]
+    head = ["surrogate", "fidelity to the forest", f"loss in {key}", "95% interval"]
+    if own:
+        head = head[:2] + [f"loss in {key}, the procedure (cross-validated)", "95% interval",
+                           f"loss in {key}, these models ({m['loss']['tree']['bundle_models']['rows']} confirmation rows)",
+                           "95% interval"]
+    parts.append(_table(head, rows))
     parts.append(_figure(plots.loss_plot(m["loss"]),
                          (f"Loss = forest {key} − surrogate {key} on the held-out rows of the cross-validation; "
                           "the bar is the nested cross-validation interval. An interval that touches zero means "
