@@ -295,8 +295,6 @@ class _Clock:
         self._last = now
 
 
-
-
 def _judge_by_cross_validation(r: Distillation, plan: Plan) -> None:
     """Out-of-fold predictions of the whole pipeline refitted per fold, pooled over repeats; the
     loss interval's bootstrap draws original rows with all their repeats."""
@@ -333,6 +331,7 @@ def _judge_by_cross_validation(r: Distillation, plan: Plan) -> None:
     if r.settings.nested_repeats > 0 and folds >= 4:   # 3 folds would leave the inner fits a third of the rows
         _nested_intervals(r, plan, y, stacked, folds, inner, refit)
     s = r.settings
+    _say(s, f"judging the bundle's own models on its {len(r.splits.confirmation)} confirmation rows")
     for m, entry in own_loss(r, level=r.loss[models[1]]["level"], resamples=s.bootstrap, seed=s.seed).items():
         r.loss[m]["bundle_models"] = entry
 
