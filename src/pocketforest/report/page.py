@@ -238,7 +238,8 @@ def _scoreboard(m: dict) -> str:
                      f"{_e(ev.get('repeats'))} repeats of {_e(ev.get('folds'))}-fold cross-validation of the whole "
                      "pipeline on all {n} rows: forest, discovery, equation and tree were refitted in every fold "
                      "without that fold's rows (Harrell, Lee &amp; Mark 1996; Steyerberg 2019). The bundle holds the "
-                     "models fitted once on all rows; the refits only judge them. The apparent figures (those models "
+                     "models fitted once (the forest, the tree and the equation's terms on the discovery rows, the "
+                     "equation's exported coefficients on all rows); the refits only judge them. The apparent figures (those models "
                      "on the rows they were fitted on) are shown below; the gap is their optimism. "
                      + _cv_interval_text(m["loss"]) + "</p>").replace("{n}", str(n)))
     else:
