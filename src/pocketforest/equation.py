@@ -97,13 +97,17 @@ class EquationFit:
 
     def predict(self, data: pd.DataFrame) -> np.ndarray:
         """Regression: values. Classification: probabilities [n, K] in ``classes`` order."""
-        eta = self.linear_predictor(data)
+        return self.predict_design(self.design(data))
+
+    def predict_design(self, X: np.ndarray, coef: np.ndarray | None = None) -> np.ndarray:
+        """:meth:`predict` from a design matrix, with these coefficients or ``coef`` (refits)."""
+        eta = X @ (self.coef if coef is None else coef)
         if self.task == "regression":
             return eta if self.link == "identity" else np.exp(eta)
         if len(self.classes) == 2:
             p1 = 1.0 / (1.0 + np.exp(-eta))
             return np.column_stack([1.0 - p1, p1])
-        full = np.column_stack([np.zeros(len(data)), eta])
+        full = np.column_stack([np.zeros(len(X)), eta])
         full -= full.max(axis=1, keepdims=True)
         e = np.exp(full)
         return e / e.sum(axis=1, keepdims=True)
@@ -538,11 +542,21 @@ def refit_for_scoring(inference: EquationFit, data: pd.DataFrame, y: np.ndarray,
     or Firth (logistic, multinomial). Poisson and negative binomial refits are maximum likelihood.
     The result's ``inference`` is the confirmation fit, whose table is the one to report.
     """
-    eq = inference
-    frame = _impute(data[[k for k in kinds]], fills, kinds)
-    X = eq.design(frame)
-    family = eq.family
-    logit = family in ("binomial", "multinomial")
+    X = design_of(inference, data, fills, kinds)
+    coef, method, tuning = refit_coefficients(inference, X, y, anticipated_r2)
+    return _scoring_fit(inference, inference, coef, method, tuning, fit_on, len(X))
+
+
+def design_of(eq: EquationFit, data: pd.DataFrame, fills: dict, kinds: dict) -> np.ndarray:
+    """The equation's design matrix (intercept first) on ``data``, missing inputs filled as in training."""
+    return eq.design(_impute(data[[k for k in kinds]], fills, kinds))
+
+
+def refit_coefficients(eq: EquationFit, X: np.ndarray, y: np.ndarray,
+                       anticipated_r2: float | None) -> tuple[np.ndarray, str, dict]:
+    """Coefficients of ``eq``'s design ``X`` on these rows, the method the row count calls for, and
+    its tuning (:func:`refit_for_scoring`); NaN coefficients and "failed" when no fit exists."""
+    logit = eq.family in ("binomial", "multinomial")
     k1 = len(eq.classes) - 1 if logit else 1
     need = (X.shape[1] - 1) * k1
     supported = supported_coefficients(len(X), anticipated_r2) if anticipated_r2 is not None else np.inf
@@ -551,7 +565,7 @@ def refit_for_scoring(inference: EquationFit, data: pd.DataFrame, y: np.ndarray,
         coef, method = _refit(eq, X, y, need, supported, tuning)
     except (np.linalg.LinAlgError, ValueError):
         coef, method = np.full(eq.coef.shape, np.nan), "failed"
-    return _scoring_fit(eq, inference, coef, method, tuning, fit_on, len(X))
+    return coef, method, tuning
 
 
 def _refit(eq: EquationFit, X: np.ndarray, y: np.ndarray, need: int, supported: float,

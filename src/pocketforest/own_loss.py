@@ -27,7 +27,7 @@ import warnings
 import numpy as np
 import pandas as pd
 
-from .equation import refit_for_scoring
+from .equation import design_of, refit_coefficients
 from .evaluate import ESTIMAND_TEST, loss_with_interval, nested_cv_interval, outcome_values
 from .resample import Plan, fold_assignments, fold_loop, pair_loop
 from .sizing import anticipated_r2
@@ -77,11 +77,19 @@ def _equation_loss(r, data: pd.DataFrame, y: np.ndarray, disc: np.ndarray, conf:
     hint = anticipated_r2(task, y[disc], r.forest.oob_prediction, r.forest.classes)
     kinds = {f.name: f.kind for f in r.table.features}
 
+    # the design once: fitted as refit_for_scoring fits (missing inputs filled), predicted as the
+    # exported equation predicts
+    X_fit = design_of(base, data, r.fills, kinds)
+    X_rows = base.design(rows)
+    failed = []
+
     def fit_predict(train: np.ndarray, helds: list, key: tuple) -> list:   # positions among the confirmation rows
         fit_rows = np.concatenate([disc, conf[train]]) if refitted else conf[train]
-        fit = refit_for_scoring(base, data.iloc[fit_rows].reset_index(drop=True), y[fit_rows], fills=r.fills,
-                                kinds=kinds, fit_on="cross-validation", anticipated_r2=hint)
-        return [{"equation": fit.predict(rows.iloc[h].reset_index(drop=True))} for h in helds]
+        coef, _, _ = refit_coefficients(base, X_fit[fit_rows], y[fit_rows], hint)
+        if not np.all(np.isfinite(coef)):   # as the export would: keep the confirmation estimates, and count it
+            coef = base.coef
+            failed.append(key)
+        return [{"equation": base.predict_design(X_rows[h], coef)} for h in helds]
 
     n = len(conf)
     with warnings.catch_warnings():   # a class with fewer confirmation rows than folds: fewer folds, no warning
@@ -107,5 +115,5 @@ def _equation_loss(r, data: pd.DataFrame, y: np.ndarray, disc: np.ndarray, conf:
     entry.update(method=METHOD_EQUATION if "nested" in entry else
                  "the bundle's equation terms re-estimated without each confirmation fold; paired percentile "
                  "bootstrap over the confirmation rows", refits=int(refits), folds=int(folds.max() + 1),
-                 repeats=REPEATS)
+                 repeats=REPEATS, refits_failed=len(failed))
     return entry
