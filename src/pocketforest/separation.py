@@ -76,10 +76,11 @@ def _information(X: np.ndarray, prob: np.ndarray) -> np.ndarray:
     W = -pk[:, :, None] * pk[:, None, :]
     idx = np.arange(pk.shape[1])
     W[:, idx, idx] += pk
-    p = X.shape[1]
+    n, p = X.shape
     K1 = pk.shape[1]
-    info = np.einsum("ikl,ia,ib->kalb", W, X, X).reshape(K1 * p, K1 * p)
-    return info
+    # info[k, a, l, b] = sum_i W[i, k, l] X[i, a] X[i, b], as one matrix product
+    M = X.T @ (X[:, :, None] * W.reshape(n, 1, K1 * K1)).reshape(n, p * K1 * K1)   # [b, (a, k, l)]
+    return M.reshape(p, p, K1, K1).transpose(2, 1, 3, 0).reshape(K1 * p, K1 * p)
 
 
 def _objective(beta: np.ndarray, X: np.ndarray, Y: np.ndarray):
@@ -99,14 +100,16 @@ def _objective(beta: np.ndarray, X: np.ndarray, Y: np.ndarray):
     score = ((Y - prob)[:, 1:].T @ X).reshape(-1)
     # d/d beta_{m,c} of 0.5 log|I| = 0.5 sum_i x_ic sum_{k,l} dW_i[k,l]/d eta_m * H_i[l,k]
     pk = prob[:, 1:]
-    H = np.einsum("ia,lakb,ib->ilk", X, inv.reshape(K1, p, K1, p), X)
+    # H[i, l, k] = sum_ab X[i, a] inv[l, a, k, b] X[i, b]
+    XI = X @ inv.reshape(K1, p, K1, p).transpose(1, 0, 2, 3).reshape(p, K1 * K1 * p)
+    H = np.sum(XI.reshape(n, K1, K1, p) * X[:, None, None, :], axis=3)
     eye = np.eye(K1)
     dP = pk[:, :, None] * (eye[None] - pk[:, None, :])         # dpi_k / d eta_m  [i, k, m]
-    # dW[k,l]/d eta_m = dP[k,m] delta_kl - dP[k,m] pi_l - pi_k dP[l,m]
-    term1 = np.einsum("ikm,ikk->im", dP, H)
-    term2 = np.einsum("ikm,il,ilk->im", dP, pk, H)
-    term3 = np.einsum("ik,ilm,ilk->im", pk, dP, H)
-    g = term1 - term2 - term3
+    # dW[k,l]/d eta_m = dP[k,m] delta_kl - dP[k,m] pi_l - pi_k dP[l,m]; summed against H[i, l, k]
+    diag = np.diagonal(H, axis1=1, axis2=2)                   # H[i, k, k]
+    by_k = np.sum(pk[:, :, None] * H, axis=1)                 # sum_l pi_l H[i, l, k]
+    by_l = np.sum(H * pk[:, None, :], axis=2)                 # sum_k pi_k H[i, l, k]
+    g = np.sum(dP * (diag - by_k - by_l)[:, :, None], axis=1)
     pen_grad = 0.5 * (g.T @ X).reshape(-1)
     value = -(llf + 0.5 * logdet)
     return value, -(score + pen_grad)
