@@ -8,7 +8,10 @@ forest, discovery, equation and tree refitted in every fold on that fold's train
 (internal validation of the modelling process: Harrell, Lee & Mark 1996, Stat Med 15:361-387;
 Steyerberg 2019, Clinical Prediction Models, 2nd ed., ch. 5 and 17). The refits only judge; the
 bundle holds the models fitted once. The apparent figures (the bundle's models on the rows they
-were fitted on) are reported beside the cross-validated ones, whose gap is the optimism.
+were fitted on) are reported beside the cross-validated ones, whose gap is the optimism. Those
+figures are about the procedure; the loss of the bundle's own models is judged beside them on
+the confirmation rows (:mod:`pocketforest.own_loss`, which shares :func:`fold_loop` and
+:func:`pair_loop`).
 """
 from __future__ import annotations
 
