@@ -77,7 +77,7 @@ def _equation_loss(r, data: pd.DataFrame, y: np.ndarray, disc: np.ndarray, conf:
     refitted = eq.inference is not None
     base = eq.inference if refitted else eq
     hint = anticipated_r2(task, y[disc], r.forest.oob_prediction, r.forest.classes)
-    kinds = {f.name: f.kind for f in r.table.features}
+    kinds = r.kinds
 
     # the design once: fitted as refit_for_scoring fits (missing inputs filled), predicted as the
     # exported equation predicts

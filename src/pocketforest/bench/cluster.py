@@ -85,7 +85,8 @@ def child_score_cluster(config: dict) -> dict:
 
 def child_fit(config: dict) -> dict:
     """The default forest on the same rows, fitted with scikit-learn's threads and through
-    joblib's Dask backend on a local cluster (the cluster's start-up not counted)."""
+    joblib's Dask backend on a local cluster (the cluster's start-up not counted). joblib serves
+    only as scikit-learn's parallel-backend switch here; nothing is dumped or loaded with it."""
     import joblib
     from distributed import Client
     from sklearn.ensemble import RandomForestRegressor

@@ -61,6 +61,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import InputError
+from ..evaluate import outcome_values
 from .common import Figure, Section, int_list, judge, name_list, settings
 
 TASKS = ("regression", "classification")
@@ -135,11 +136,6 @@ def _table(df: pd.DataFrame, task: str, source: str):
     return prepare(df, "y", task=task, source=source)
 
 
-def _outcome(y: np.ndarray, task: str) -> np.ndarray:
-    from ..evaluate import outcome_values
-    return outcome_values(np.asarray(y), task)
-
-
 # --------------------------------------------------------------------------- null rejection
 
 
@@ -173,7 +169,7 @@ def whole_model_test(fit) -> dict | None:
     conf = table.data.iloc[fit.splits.confirmation].reset_index(drop=True)
     kinds = {f.name: f.kind for f in table.features}
     X = inference.design(_impute(conf[list(kinds)], fit.fills, kinds))
-    y = _response(_outcome(conf[table.target].to_numpy(), table.task), table.task, inference.classes)
+    y = _response(outcome_values(conf[table.target].to_numpy(), table.task), table.task, inference.classes)
     return block_test(X, X[:, :1], y, inference.family, penalised=inference.method.startswith("Firth"),
                       n_classes=len(inference.classes) if inference.classes else None)
 
@@ -203,7 +199,7 @@ def summarise_null(rows: list[dict]) -> list[dict]:
 
 def _population(task: str, rows: int) -> tuple[pd.DataFrame, np.ndarray]:
     pop = planted_small(rows, _rng(_TAG["population"], _TASK_CODE[task]), task)
-    return pop, _outcome(pop["y"].to_numpy(), task)
+    return pop, outcome_values(pop["y"].to_numpy(), task)
 
 
 def _true_metric(result, pop: pd.DataFrame, y_pop: np.ndarray, model: str) -> float:
