@@ -104,7 +104,7 @@ def _onnx_outputs(eq, table, rows):
     return dict(zip(names, sess.run(None, feeds(rows, feats))))
 
 
-def _code_outputs(eq, table, rows, tmp_path, collaborators: bool = True):
+def _code_outputs(eq, table, rows, tmp_path):
     meta = {"target": "y", "task": eq.task, "classes": eq.classes, "tool_version": "test"}
     feats = [f.to_dict() for f in table.features]
     (tmp_path / "equation.py").write_text(equation_py(eq, meta))
@@ -116,10 +116,10 @@ def _code_outputs(eq, table, rows, tmp_path, collaborators: bool = True):
         out[engine] = runners.sql_predictions(runners.run_sql(engine, sql, rows, feats), eq.task, eq.classes)
     if HAVE_NODE:
         out["javascript"] = runners.collect(runners.run_js_export(tmp_path / "equation.js", json_rows), eq.task, eq.classes)
-    if HAVE_R and collaborators:
+    if HAVE_R:
         (tmp_path / "equation.R").write_text(equation_r(eq, meta))
         out["R"] = engines.run_r_exports({"eq": tmp_path / "equation.R"}, rows, feats, eq.task, eq.classes, tmp_path)["eq"]
-    if HAVE_PSPP and collaborators:
+    if HAVE_PSPP:
         out["PSPP"] = _pspp_outputs(eq, table, rows, meta, tmp_path)
     return out
 
@@ -285,9 +285,9 @@ def test_log_link_overflow_is_missing_in_every_form(tmp_path):
     assert np.isnan(want[[1, 3]]).all() and np.isfinite(want[[0, 2]]).all()
     got = _onnx_outputs(eq, table, rows)["prediction"].reshape(-1)
     np.testing.assert_allclose(got, want, rtol=1e-6, atol=1e-6)   # float32 inputs, as above
-    # R and SPSS syntax do not yet give non-finite scores and the intercept-only equation the
-    # missing-prediction convention of the other forms (known gap, in the session note)
-    for form, res in _code_outputs(eq, table, rows, tmp_path, collaborators=False).items():
+    # R and SPSS syntax included: equation.sps gives 0 where PSPP's EXP would underflow to
+    # system-missing, as the other forms do
+    for form, res in _code_outputs(eq, table, rows, tmp_path).items():
         np.testing.assert_allclose(res["prediction"], want, rtol=1e-12, atol=1e-12, err_msg=form)
 
 
@@ -326,9 +326,8 @@ def test_classification_without_a_finite_score_is_missing_in_every_form(k, tmp_p
     got = _onnx_outputs(eq, table, rows)
     np.testing.assert_allclose(got["probabilities"], want, atol=1e-6)   # float32 probabilities
     np.testing.assert_array_equal(got["label"], labels)
-    # R and SPSS syntax do not yet give non-finite scores and the intercept-only equation the
-    # missing-prediction convention of the other forms (known gap, in the session note)
-    for form, res in _code_outputs(eq, table, rows, tmp_path, collaborators=False).items():
+    # R and SPSS syntax included (their missing-prediction convention is that of the other forms)
+    for form, res in _code_outputs(eq, table, rows, tmp_path).items():
         np.testing.assert_allclose(res["probabilities"], want, atol=1e-12, err_msg=form)
         np.testing.assert_array_equal(res["label"], labels, err_msg=form)
 
@@ -347,9 +346,8 @@ def test_intercept_only_equation_in_every_form(task, k, tmp_path):
         np.testing.assert_allclose(got["prediction"].reshape(-1), want, rtol=1e-12)
     else:
         np.testing.assert_allclose(got["probabilities"], want, atol=1e-6)   # float32 probabilities
-    # R and SPSS syntax do not yet give non-finite scores and the intercept-only equation the
-    # missing-prediction convention of the other forms (known gap, in the session note)
-    for form, res in _code_outputs(eq, table, rows, tmp_path, collaborators=False).items():
+    # R and SPSS syntax included (their missing-prediction convention is that of the other forms)
+    for form, res in _code_outputs(eq, table, rows, tmp_path).items():
         key = "prediction" if task == "regression" else "probabilities"
         np.testing.assert_allclose(res[key], want, rtol=1e-12, atol=1e-12, err_msg=form)
 

@@ -120,9 +120,15 @@ def equation_sps(eq, meta: dict, features: list) -> str:
         terms = [plain_number(coef[0])] + [f"{plain_number(b)} * {x}" for b, x in zip(coef[1:], design)]
         lines += _wrap(f"COMPUTE #eta{k} = " + " + ".join(terms) + ".")
     if eq.task == "regression":
-        value = "#eta1" if eq.link == "identity" else "EXP(#eta1)"
-        lines += [f"COMPUTE {outputs[0]} = {value}.",
-                  f"VARIABLE LABELS {outputs[0]} {sps_str('Equation prediction of ' + str(eq.target))}."]
+        if eq.link == "identity":
+            lines.append(f"COMPUTE {outputs[0]} = #eta1.")
+        else:
+            # PSPP returns system-missing when EXP underflows, where the other forms give a mean
+            # below 1e-304 or exactly 0: below -700 the mean is 0. A missing #eta1 skips the whole
+            # DO IF, so the prediction stays system-missing, as in the other forms.
+            lines += ["DO IF (#eta1 < -700).", f"  COMPUTE {outputs[0]} = 0.", "ELSE.",
+                      f"  COMPUTE {outputs[0]} = EXP(#eta1).", "END IF."]
+        lines.append(f"VARIABLE LABELS {outputs[0]} {sps_str('Equation prediction of ' + str(eq.target))}.")
     else:
         lines += _classify(eq, outputs, len(coef_blocks))
     lines += ["EXECUTE.", ""]
@@ -165,18 +171,25 @@ def _bind(codes: _Codes, names: dict[str, str]) -> list[str]:
 def _classify(eq, outputs: list[str], n_blocks: int) -> list[str]:
     label, probs = outputs[0], outputs[1:]
     etas = ["0"] + [f"#eta{k}" for k in range(1, n_blocks + 1)]
+    width = max(1, max(len(str(c).encode("utf-8")) for c in eq.classes))
+    # A class score without a value leaves every probability system-missing and the label blank,
+    # as in the other forms. The test is spelled out because MAX and sums of SPSS functions skip
+    # missing arguments; scratch variables keep their value from the case before, so #best is
+    # reset first.
+    missing = " + ".join(f"MISSING({e})" for e in etas[1:]) or "0"
+    lines = [f"STRING {label} (A{width}).", "COMPUTE #best = 0."]
+    lines += _wrap(f"DO IF ({missing} = 0).")
     # softmax after subtracting the largest score, so EXP never overflows; PSPP also returns
     # system-missing when EXP underflows, so exponents stop at -700 (EXP(-700) < 1e-304: a
     # probability that small is 0 for every purpose, and the other forms give 0 there)
-    lines = [f"COMPUTE #top = MAX({', '.join(etas)})."]
-    lines += [f"COMPUTE #w{k} = EXP(MAX({e} - #top, -700))." for k, e in enumerate(etas)]
-    lines += _wrap("COMPUTE #sum = " + " + ".join(f"#w{k}" for k in range(len(etas))) + ".")
-    for k, p in enumerate(probs):
-        lines.append(f"COMPUTE {p} = #w{k} / #sum.")
-    width = max(1, max(len(str(c).encode("utf-8")) for c in eq.classes))
-    lines += [f"STRING {label} (A{width}).", "COMPUTE #best = 1.", f"COMPUTE #most = {probs[0]}."]
+    body = [f"COMPUTE #top = MAX({', '.join(etas)})."]
+    body += [f"COMPUTE #w{k} = EXP(MAX({e} - #top, -700))." for k, e in enumerate(etas)]
+    body += _wrap("COMPUTE #sum = " + " + ".join(f"#w{k}" for k in range(len(etas))) + ".")
+    body += [f"COMPUTE {p} = #w{k} / #sum." for k, p in enumerate(probs)]
+    body += ["COMPUTE #best = 1.", f"COMPUTE #most = {probs[0]}."]
     for k, p in enumerate(probs[1:], start=2):   # the first largest probability, as elsewhere
-        lines += [f"DO IF ({p} > #most).", f"  COMPUTE #best = {k}.", f"  COMPUTE #most = {p}.", "END IF."]
+        body += [f"DO IF ({p} > #most).", f"  COMPUTE #best = {k}.", f"  COMPUTE #most = {p}.", "END IF."]
+    lines += ["  " + ln for ln in body] + ["END IF."]
     for k, cls in enumerate(eq.classes, start=1):
         lines.append(f"IF (#best = {k}) {label} = {sps_str(cls)}.")
     lines.append(f"VARIABLE LABELS {label} {sps_str('Equation label of ' + str(eq.target))}.")

@@ -36,7 +36,8 @@ for (i in seq(3, length(args), by = 2)) {
   res <- model$predict(rows)
   if (!is.data.frame(res)) res <- data.frame(prediction = res)
   for (j in seq_along(res)) if (is.numeric(res[[j]])) res[[j]] <- sprintf("%.17g", res[[j]])
-  write.csv(res, args[i + 1], row.names = FALSE, fileEncoding = "UTF-8")
+  # a missing label (no finite class score) is an empty field, as in every other form's output
+  write.csv(res, args[i + 1], row.names = FALSE, na = "", fileEncoding = "UTF-8")
 }
 '''
 
