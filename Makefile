@@ -16,7 +16,7 @@ demo: $(VENV)/.installed
 	$(PY) -m pocketforest verify exports/demo
 
 test: $(VENV)/.installed
-	$(PY) -m pytest -q
+	$(PY) -m pytest -q -n auto
 
 bench: $(VENV)/.installed
 	$(PY) -m pocketforest.bench
