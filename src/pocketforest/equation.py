@@ -100,12 +100,21 @@ class EquationFit:
         return self.predict_design(self.design(data))
 
     def predict_design(self, X: np.ndarray, coef: np.ndarray | None = None) -> np.ndarray:
-        """:meth:`predict` from a design matrix, with these coefficients or ``coef`` (refits)."""
+        """:meth:`predict` from a design matrix, with these coefficients or ``coef`` (refits).
+
+        An exponent past a double's range is the right limit here (a mean of infinity, which
+        every form reports as no prediction; a probability of 0), so numpy's overflow warning
+        is silenced rather than shown to the user.
+        """
         eta = X @ (self.coef if coef is None else coef)
         if self.task == "regression":
-            return eta if self.link == "identity" else np.exp(eta)
+            if self.link == "identity":
+                return eta
+            with np.errstate(over="ignore"):
+                return np.exp(eta)
         if len(self.classes) == 2:
-            p1 = 1.0 / (1.0 + np.exp(-eta))
+            with np.errstate(over="ignore"):
+                p1 = 1.0 / (1.0 + np.exp(-eta))
             return np.column_stack([1.0 - p1, p1])
         full = np.column_stack([np.zeros(len(X)), eta])
         full -= full.max(axis=1, keepdims=True)
