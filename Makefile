@@ -16,7 +16,7 @@ demo: $(VENV)/.installed
 	$(PY) -m pocketforest verify exports/demo
 
 test: $(VENV)/.installed
-	$(PY) -m pytest -q -n auto
+	$(PY) -m pytest -q -n auto --maxprocesses=4
 
 bench: $(VENV)/.installed
 	$(PY) -m pocketforest.bench
