@@ -127,8 +127,8 @@ def _maximise(X: np.ndarray, Y: np.ndarray, free: np.ndarray) -> np.ndarray:
         value, grad = _objective(beta, X, Y)
         return value, grad[free]
 
-    # BFGS brings the coefficients near the optimum (to a gradient of 1e-6: about a third of the
-    # objective calls that 1e-9 needs), and Newton steps on the modified score finish the job
+    # BFGS brings the coefficients near the optimum (to a gradient of 1e-6, which takes far
+    # fewer objective calls than 1e-9), and Newton steps on the modified score finish the job
     res = optimize.minimize(objective, np.zeros(int(free.sum())), jac=True, method="BFGS",
                             options={"gtol": 1e-6, "maxiter": 2000})
     beta = np.zeros(p * K1)
