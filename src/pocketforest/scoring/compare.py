@@ -82,13 +82,15 @@ class Comparison:
 
 
 def compare(bundle: str | os.PathLike, data: str | os.PathLike, *, max_loss: float | None = None,
-            max_outside: float | None = None, resamples: int | None = None) -> Comparison:
-    """Score ``data`` (labelled rows) with all three models of ``bundle`` and measure loss and drift."""
+            max_outside: float | None = None, resamples: int | None = None,
+            decimal_comma: bool = False) -> Comparison:
+    """Score ``data`` (labelled rows) with all three models of ``bundle`` and measure loss and drift
+    (``decimal_comma``: as in :func:`intake.read_table`)."""
     manifest = read_manifest(bundle)
     target, task = manifest["target"], manifest["task"]
     classes = manifest.get("classes")
     features = features_of(manifest)
-    raw = read_table(data)
+    raw = read_table(data, decimal_comma=decimal_comma)
     if target not in raw.columns:
         raise InputError(f"{data}: no column '{target}' (the bundle's target): compare needs labelled rows; "
                          "add the outcome column, or use `pocketforest score` for unlabelled rows")
@@ -259,7 +261,9 @@ def comparison_text(d: dict) -> str:
         lines.append(f"  {d['rows_unknown_class']} rows with a class the bundle never saw left out of the metrics")
     if d.get("rows_without_prediction"):
         lines.append(f"  {d['rows_without_prediction']} rows where the equation has no finite value left out of the metrics")
-    table = [["model"] + names + ["(at distill, test rows)"]]
+    # the figures the bundle was judged by: its test rows, or cross-validation below 800 rows
+    judged = "cross-validated" if then.get("on") == "cross-validation" else "test rows"
+    table = [["model"] + names + [f"(at distill, {judged})"]]
     for m in (m for m in MODELS if m in ev):
         old = then.get(m) or {}
         table.append([m] + [_f(ev[m][n]) for n in names]
