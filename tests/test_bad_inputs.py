@@ -49,6 +49,8 @@ def _cases(ctx: dict) -> dict[str, tuple[list[str], int]]:
         "unnamed column": (_distill(c / "unnamed_columns.csv", "--out", out), 2),
         "mixed delimiters": (_distill(c / "mixed_delimiters.csv", "--out", out), 2),
         "semicolons in a .csv": (_distill(c / "semicolon_separated.csv", "--out", out), 2),
+        "decimal commas without --decimal-comma": (_distill(ctx["comma_tsv"], "--out", out), 2),
+        "--decimal-comma with --sample": (_distill(ctx["comma_csv"], "--out", out, "--decimal-comma", "--sample", "50"), 2),
         "ragged row": (_distill(c / "ragged_rows.csv", "--out", out), 2),
         "target is a row id": (_distill(c / "target_is_id.csv", "--out", out, target="id"), 2),
         "huge category count": (_distill(c / "huge_category_count.csv", "--out", out), 2),
@@ -84,6 +86,8 @@ def _cases(ctx: dict) -> dict[str, tuple[list[str], int]]:
                                           "--out", "{DIR}/no/such/folder/p.csv"], 2),
         "score: output type": (["score", str(b), str(c / "score_far_outside.csv"), "--model", "forest", "--out", "{DIR}/p.xlsx"], 2),
         "score: --keep unknown column": score(c / "score_far_outside.csv", "--keep", "row_id"),
+        "score: decimal commas without --decimal-comma": score(ctx["comma_csv"]),
+        "score: --decimal-comma with --engine dask": score(ctx["comma_csv"], "--decimal-comma", "--engine", "dask"),
         "score: bundle missing forest.onnx": score(c / "score_far_outside.csv", bundle=ctx["no_forest"]),
         "score: bundle with altered forest.onnx": score(c / "score_far_outside.csv", bundle=ctx["altered_forest"]),
         "score: manifest not JSON": score(c / "score_far_outside.csv", bundle=ctx["bad_manifest"]),
@@ -124,6 +128,9 @@ def corpus(tmp_path_factory) -> dict:
     latin["colour"] = latin["colour"].str.replace("red", "rouge-clair\u00e9", regex=False)
     (gen / "latin1.csv").write_bytes(latin.to_csv(index=False).encode("latin-1"))
     (gen / "bom.csv").write_bytes(b"\xef\xbb\xbf" + text.encode("utf-8"))
+    # saved where the comma is the decimal mark: semicolons in a .csv, 6,8 in both
+    valid.to_csv(gen / "decimal_comma.csv", sep=";", decimal=",", index=False)
+    valid.to_csv(gen / "decimal_comma.tsv", sep="\t", decimal=",", index=False)
     valid.to_parquet(gen / "whole.parquet")
     whole = (gen / "whole.parquet").read_bytes()
     (gen / "truncated.parquet").write_bytes(whole[: len(whole) // 2])
@@ -137,6 +144,7 @@ def corpus(tmp_path_factory) -> dict:
 
     ctx = {
         "dir": base, "bundle": bundle, "latin1": gen / "latin1.csv", "bom": gen / "bom.csv",
+        "comma_csv": gen / "decimal_comma.csv", "comma_tsv": gen / "decimal_comma.tsv",
         "truncated": gen / "truncated.parquet", "folder": gen / "folder.csv",
         "no_forest": damaged("no_forest", lambda d: (d / "forest.onnx").unlink()),
         "altered_forest": damaged("altered_forest", lambda d: (d / "forest.onnx").write_bytes((d / "forest.onnx").read_bytes() + b"\0")),
@@ -149,6 +157,9 @@ def corpus(tmp_path_factory) -> dict:
         "all-missing feature column (dropped, warned)": (["distill", str(CORPUS / "all_missing_feature.csv"), "--target", "y",
                                                           "--trees", "10", "--out", "{OUT}"], 0),
         "byte-order mark (works)": (["distill", str(ctx["bom"]), "--target", "y", "--trees", "10", "--out", "{OUT}"], 0),
+        "decimal commas with --decimal-comma (works)": (_distill(ctx["comma_csv"], "--out", "{OUT}", "--decimal-comma"), 0),
+        "score: decimal commas with --decimal-comma (works)": (["score", str(bundle), str(ctx["comma_tsv"]), "--model",
+                                                                "equation", "--out", "{OUT}", "--decimal-comma"], 0),
         "score: unseen categories (flagged, warned)": (["score", str(bundle), str(CORPUS / "score_unseen_category.csv"),
                                                         "--model", "tree", "--out", "{OUT}"], 0),
         "score: far outside the training range (flagged, warned)": (["score", str(bundle), str(CORPUS / "score_far_outside.csv"),
@@ -177,7 +188,8 @@ def _leftovers(work: Path) -> list[str]:
 
 
 ERROR_CASES = [name for name in _cases({k: Path("/x") for k in (
-    "bundle", "latin1", "truncated", "folder", "no_forest", "altered_forest", "bad_manifest", "dir")})]
+    "bundle", "latin1", "truncated", "folder", "no_forest", "altered_forest", "bad_manifest", "dir",
+    "comma_csv", "comma_tsv")})]
 
 
 def test_corpus_is_large_enough():
@@ -227,6 +239,19 @@ def test_byte_order_mark_works(corpus):
     proc, out = _ok(corpus, "byte-order mark (works)")
     names = [f["name"] for f in pd.read_json(out / "manifest.json", typ="series")["features"]]
     assert names[0] == "x1"  # not '\ufeffx1'
+
+
+def test_a_decimal_comma_file_gives_the_bundle_of_the_decimal_point_file(corpus):
+    """The same rows saved semicolon-separated with 6,8 numbers, read with --decimal-comma, give
+    the valid bundle's figures exactly (same seed and options), and score like it."""
+    import json
+    _, out = _ok(corpus, "decimal commas with --decimal-comma (works)")
+    got = json.loads((out / "manifest.json").read_text())
+    want = json.loads((corpus["ctx"]["bundle"] / "manifest.json").read_text())
+    assert got["features"] == want["features"]
+    assert got["evaluation"] == want["evaluation"] and got["equation"]["coefficients"] == want["equation"]["coefficients"]
+    _, scored = _ok(corpus, "score: decimal commas with --decimal-comma (works)")
+    assert len(pd.read_csv(scored)) == len(pd.read_csv(CORPUS / "train_valid.csv"))
 
 
 @pytest.mark.parametrize("name,rows", [("score: unseen categories (flagged, warned)", [1, 2]),

@@ -18,8 +18,11 @@ from .defaults import TREES
 def fit(data: pd.DataFrame | str | os.PathLike, target: str, *, task: str = "auto",
         categorical: Sequence[str] = (), ignore: Sequence[str] = (), random_state: int = 0,
         n_trees: int = TREES, tree_depth: int | None = None, tree_leaves: int | None = None,
-        split: tuple[float, float, float] | None = None, quiet: bool = True):
+        split: tuple[float, float, float] | None = None, quiet: bool = True, decimal_comma: bool = False):
     """Run the whole job on a DataFrame (or a data file) and return the :class:`Distillation`.
+
+    ``decimal_comma``: a data file's numbers are written 6,8 (and a .csv is semicolon-separated),
+    as ``--decimal-comma`` on the command line.
 
     ``n_trees`` defaults to :data:`pocketforest.defaults.TREES`, the same forest as the command line's.
     """
@@ -28,7 +31,7 @@ def fit(data: pd.DataFrame | str | os.PathLike, target: str, *, task: str = "aut
     if isinstance(data, pd.DataFrame):
         table = prepare(data, target, task=task, categorical=categorical, ignore=ignore, source="<DataFrame>")
     else:
-        table = load(data, target, task=task, categorical=categorical, ignore=ignore)
+        table = load(data, target, task=task, categorical=categorical, ignore=ignore, decimal_comma=decimal_comma)
     settings = Settings(trees=n_trees, tree_depth=tree_depth, tree_leaves=tree_leaves, seed=random_state,
                         split=split, quiet=quiet)
     return distill(table, settings)

@@ -28,6 +28,12 @@ def _common(p: argparse.ArgumentParser) -> None:
     p.add_argument("--debug", action="store_true", help="show a traceback on errors")
 
 
+def _decimal_comma(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--decimal-comma", action="store_true",
+                   help="the file's numbers are written with a decimal comma (6,8), and a .csv file is "
+                        "semicolon-separated, as spreadsheets save text where the comma is the decimal mark")
+
+
 def _distill_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--out", help="bundle folder (default exports/<data file stem>)")
     p.add_argument("--task", choices=["auto", "regression", "classification"], default="auto")
@@ -84,6 +90,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("data", help=".csv, .tsv or .parquet table")
     p.add_argument("--target", required=True, help="the outcome column")
     _distill_options(p)
+    _decimal_comma(p)
     _common(p)
 
     p = sub.add_parser("demo", help="run distill on the committed demo data")
@@ -108,6 +115,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--scheduler", metavar="ADDRESS",
                    help="with --engine dask: the address of a running Dask scheduler (default: a local cluster, "
                         "one worker process per core)")
+    _decimal_comma(p)
     _common(p)
 
     p = sub.add_parser("verify", help="check a bundle's files and every exported form against its reference rows")
@@ -128,6 +136,7 @@ def build_parser() -> argparse.ArgumentParser:
                    help="exit 1 when the tree or the equation loses more than X (R² or accuracy) against the forest")
     p.add_argument("--max-outside", type=float, metavar="SHARE",
                    help="exit 1 when more than SHARE (0-1) of the rows have an input outside the training envelope")
+    _decimal_comma(p)
     _common(p)
     return parser
 
@@ -170,6 +179,9 @@ def _run_distill(data: str, target: str, args: argparse.Namespace) -> int:
     if Path(out).exists() and not args.force:
         raise InputError(f"{out} already exists: choose another --out or pass --force to replace it")
     drawn = None
+    if args.decimal_comma and args.sample is not None:
+        raise InputError("--decimal-comma reads the whole file: drop --sample, or save the file with decimal "
+                         "points to sample it")
     if args.sample is not None:
         from .intake import prepare
         from .sample import draw
@@ -178,7 +190,8 @@ def _run_distill(data: str, target: str, args: argparse.Namespace) -> int:
         table = prepare(drawn.sample, target, task=args.task, categorical=args.categorical, ignore=args.ignore,
                         source=data)
     else:
-        table = load(data, target, task=args.task, categorical=args.categorical, ignore=args.ignore)
+        table = load(data, target, task=args.task, categorical=args.categorical, ignore=args.ignore,
+                     decimal_comma=args.decimal_comma)
     from .discovery import check_requests
     from .intake.screening import column_named
     names = [f.name for f in table.features]
@@ -231,13 +244,15 @@ def _run(args: argparse.Namespace) -> int:
         if args.engine == "dask":
             if args.explain:
                 raise InputError("--explain runs with --engine single for now: drop one of them")
+            if args.decimal_comma:
+                raise InputError("--decimal-comma runs with --engine single for now: drop one of them")
             from .scoring.cluster import score_files
             n = score_files(args.bundle, args.data, args.model, args.out, args.keep, scheduler=args.scheduler,
                             quiet=args.quiet)
         else:
             from .scoring.score import score_file
             n = score_file(args.bundle, args.data, args.model, args.out, args.keep, quiet=args.quiet,
-                           explain=args.explain)
+                           explain=args.explain, decimal_comma=args.decimal_comma)
         if args.out and not args.quiet:
             print(f"wrote {n} predictions to {args.out}", file=sys.stderr)
         return 0
@@ -258,7 +273,8 @@ def _run(args: argparse.Namespace) -> int:
             check_out(args.out)
         if args.max_outside is not None and not 0.0 <= args.max_outside <= 1.0:
             raise InputError(f"--max-outside {args.max_outside:g} is a share: give a number from 0 to 1")
-        found = compare(args.bundle, args.data, max_loss=args.max_loss, max_outside=args.max_outside)
+        found = compare(args.bundle, args.data, max_loss=args.max_loss, max_outside=args.max_outside,
+                        decimal_comma=args.decimal_comma)
         d = found.to_dict()
         if args.out:
             write_json(d, args.out)

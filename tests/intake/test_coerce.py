@@ -52,3 +52,14 @@ def test_coerce_value_beyond_float32_is_refused():
     raises(r"column 'x' has values beyond ±3\.4e38 \(line 3\)", coerce_for_scoring, raw, _features(), source="new.csv")
     raw.loc[1, "x"] = "1e30"
     assert coerce_for_scoring(raw, _features(), source="new.csv")["x"].iloc[1] == 1e30
+
+
+def test_coerce_names_the_decimal_comma_option():
+    """New rows saved with decimal commas, or a semicolon file read as comma-separated: the error
+    says which option reads them."""
+    raw = pd.DataFrame({"x": ["0,5", "1"], "size cm": ["2", "3"], "color": ["red", "blue"]})
+    raises(r"column 'x' holds numbers written with a decimal comma \('0,5' at line 2\).*--decimal-comma",
+           coerce_for_scoring, raw, _features(), source="new.csv")
+    glued = pd.DataFrame({"x;size cm;color": ["0,5;2;red"]})
+    raises(r"missing column\(s\).*the header holds semicolons.*--decimal-comma",
+           coerce_for_scoring, glued, _features(), source="new.csv")

@@ -45,7 +45,8 @@ def test_bom_csv_tsv_and_parquet_agree(tmp_path):
         ("d.csv", "a, ,b,\n1,2,3,4\n", r"column positions 2, 4 .*no name"),
         ("d.csv", "a,b\n1,2\n3,4\n5,6,7\n", r"line 4 has 3 fields but the header has 2"),
         ("d.csv", "a,b\n1,2,3\n4,5\n", r"line 2 has 3 fields but the header has 2"),
-        ("d.csv", "a;b;c\n1;2;3\n", r"semicolon-separated.*comma-separated"),
+        ("d.csv", "a;b;c\n1;2;3\n", r"semicolon-separated.*--decimal-comma.*comma-separated"),
+        ("d.csv", "a;b, c;d\n1,5;2,0;3\n", r"line 2 has 3 fields but the header has 2.*--decimal-comma"),
         ("d.csv", "a\tb\n1\t2\n", r"tab-separated.*rename it to \.tsv"),
         ("d.tsv", "a,b\n1,2\n", r"comma-separated.*rename it to \.csv"),
     ],
@@ -111,3 +112,44 @@ def test_unclosed_quote_is_an_input_error(tmp_path):
     path = write(tmp_path, "q.csv", 'a,b\n1,"open\n2,3\n')
     with pytest.raises(InputError, match=r"q\.csv: cannot be parsed.*check quoting"):
         read_table(path)
+
+
+def test_decimal_comma_file_reads_like_the_decimal_point_file(tmp_path):
+    """A table saved where the comma is the decimal mark: semicolon-separated .csv (or .tsv) with
+    numbers written 6,8 (the convention R's read.csv2 reads; common practice for spreadsheets in
+    such locales). Read with decimal_comma it gives the same typed table as the plain file."""
+    base = frame(45).assign(x=lambda d: d["x"].astype(float) / 8 - 2, y=lambda d: d["y"].astype(float))
+    plain = write(tmp_path, "plain.csv", csv_text(base))
+    semi = tmp_path / "semi.csv"
+    base.to_csv(semi, sep=";", decimal=",", index=False)
+    tsv = tmp_path / "semi.tsv"
+    base.to_csv(tsv, sep="\t", decimal=",", index=False)
+    assert "," in semi.read_text().splitlines()[1]     # the numbers really carry decimal commas
+    want = load(plain, "y")
+    for path in (semi, tsv):
+        got = load(path, "y", decimal_comma=True)
+        pd.testing.assert_frame_equal(got.data, want.data)
+        assert [f.to_dict() for f in got.features] == [f.to_dict() for f in want.features]
+    chunks = [c for _, c in iter_table(semi, chunksize=10, decimal_comma=True)]
+    pd.testing.assert_frame_equal(pd.concat(chunks, ignore_index=True), read_table(semi, decimal_comma=True))
+
+
+def test_decimal_comma_numbers_read_without_the_option_are_an_error(tmp_path):
+    """Read as text, 6,8 would silently make a numeric column a category: one error naming the option."""
+    base = frame(45).assign(x=[0.5, 1.5, 2.5] * 15)   # y stays text with points
+    tsv = tmp_path / "semi.tsv"
+    base.to_csv(tsv, sep="\t", decimal=",", index=False)
+    msg = raises(r"column 'x' holds numbers written with a decimal comma .*--decimal-comma.*--categorical x", load, tsv, "y")
+    assert "line 2" in msg
+    # asked to be categories, they stay categories
+    kept = load(tsv, "y", categorical=["x"])
+    assert next(f for f in kept.features if f.name == "x").kind == "categorical"
+    assert sorted(kept.data["x"].unique()) == ["0,5", "1,5", "2,5"]
+
+
+def test_decimal_points_rewrites_only_whole_numbers():
+    from pocketforest.intake.values import decimal_points
+    s = pd.Series(["6,8", "-0,25", ",5", "1,5E-3", "12", "1.234,5", "3,5 mg", "a,b", "1,2,3", None], dtype=object)
+    got = decimal_points(s).tolist()
+    assert got[:5] == ["6.8", "-0.25", ".5", "1.5E-3", "12"]
+    assert got[5:9] == ["1.234,5", "3,5 mg", "a,b", "1,2,3"] and got[9] is None

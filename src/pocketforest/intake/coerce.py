@@ -10,8 +10,8 @@ import pandas as pd
 
 from ..errors import InputError
 from ..features import Feature
-from .messages import check_finite, examples, plural, quote_list
-from .values import category_series, parse_numbers, plain
+from .messages import check_finite, decimal_comma_message, examples, plural, quote_list
+from .values import category_series, decimal_comma_only, parse_numbers, plain
 
 
 def coerce_for_scoring(
@@ -25,8 +25,13 @@ def coerce_for_scoring(
     """
     missing_cols = [f.name for f in features if f.name not in df.columns]
     if missing_cols:
+        # a semicolon-separated .csv read as comma-separated has its names run together
+        semicolons = any(";" in str(c) for c in df.attrs.get("file_header", df.columns))
+        hint = ("; the header holds semicolons: if the file is semicolon-separated with numbers written 6,8, "
+                "pass --decimal-comma" if semicolons else "")
         raise InputError(
-            f"{source}: missing column(s) {quote_list(missing_cols)} that the model needs: add them (cells may be empty)"
+            f"{source}: missing column(s) {quote_list(missing_cols)} that the model needs: add them "
+            f"(cells may be empty){hint}"
         )
     lines = np.arange(len(df)) + first_row + 2
     out: dict[str, pd.Series] = {}
@@ -37,6 +42,9 @@ def coerce_for_scoring(
         s = plain(s)
         if f.kind == "numeric":
             values, bad = parse_numbers(s)
+            if decimal_comma_only(s, bad):
+                raise InputError(decimal_comma_message(source, f"column '{f.name}'", examples(s, bad, lines),
+                                                       "or write them with a decimal point"))
             if bad.any():
                 raise InputError(
                     f"{source}: column '{f.name}' must be numeric but has {plural(int(bad.sum()), 'text value')} "

@@ -75,3 +75,10 @@ def check_finite(values: np.ndarray, col: str, lines: np.ndarray, source: str) -
             f"{source}: column '{col}' has values beyond ±3.4e38 (line {where}{', ...' if huge.sum() > EXAMPLES else ''}), "
             "more than the models' 32-bit inputs hold: rescale the column or leave those cells empty"
         )
+
+
+def decimal_comma_message(source: str, what: str, shown: str, other: str) -> str:
+    """The error for numbers written with a decimal comma in a file read without --decimal-comma:
+    read as text they would silently become categories (or classes)."""
+    return (f"{source}: {what} holds numbers written with a decimal comma ({shown}): pass --decimal-comma "
+            f"to read them as numbers (a .csv is then read as semicolon-separated), {other}")

@@ -19,21 +19,24 @@ import pandas as pd
 
 from ..errors import InputError
 from .messages import printable, quote_list, shorten
-from .values import clean_text, plain
+from .values import clean_text, decimal_points, plain
 
 _EXTENSIONS = {".csv": ",", ".tsv": "\t", ".parquet": None}
 _DELIMITER_NAMES = {",": "comma", "\t": "tab", ";": "semicolon", "|": "pipe"}
 
 
-def read_table(path: str | os.PathLike[str], columns: Sequence[str] | None = None) -> pd.DataFrame:
+def read_table(path: str | os.PathLike[str], columns: Sequence[str] | None = None, *,
+               decimal_comma: bool = False) -> pd.DataFrame:
     """Read a whole CSV/TSV/Parquet file into a frame with missing values as NaN.
 
     CSV/TSV columns stay text (typing happens in :func:`prepare` / :func:`coerce_for_scoring`);
     Parquet columns keep their native types, with text columns cleaned the same way as CSV.
     ``columns`` reads only those columns (the ones absent from the file are skipped silently so
     :func:`coerce_for_scoring` can name them all at once); parsing text is the slow part.
+    ``decimal_comma``: the numbers are written 6,8 and a .csv is semicolon-separated, as
+    spreadsheets save text where the comma is the decimal mark (R's ``read.csv2`` convention).
     """
-    p, sep = _check_path(path)
+    p, sep = _check_path(path, decimal_comma)
     if sep is None:
         df = _read_parquet(p, columns)
         if len(df) == 0:
@@ -45,7 +48,9 @@ def read_table(path: str | os.PathLike[str], columns: Sequence[str] | None = Non
         df = pd.read_csv(p, **kwargs)
     if len(df) == 0:
         raise InputError(f"{p}: has a header but no data rows: add rows below the header")
-    return _finish_csv_frame(df, names, p)
+    df = _finish_csv_frame(df, names, p, decimal_comma)
+    df.attrs["file_header"] = header   # every name in the file, for hints when a selection misses
+    return df
 
 
 def parquet_chunks(path: Path, batches, first: int) -> Iterator[tuple[int, pd.DataFrame]]:
@@ -65,15 +70,17 @@ def parquet_chunks(path: Path, batches, first: int) -> Iterator[tuple[int, pd.Da
 
 
 def iter_table(
-    path: str | os.PathLike[str], chunksize: int = 100_000, columns: Sequence[str] | None = None
+    path: str | os.PathLike[str], chunksize: int = 100_000, columns: Sequence[str] | None = None, *,
+    decimal_comma: bool = False,
 ) -> Iterator[tuple[int, pd.DataFrame]]:
     """Yield ``(first_row, frame)`` chunks so big files can be scored in bounded memory.
 
     ``first_row`` is the 0-based data row of the chunk's first row (pass it to
     :func:`coerce_for_scoring` so line numbers in errors are right); each frame has a fresh
-    0-based index and is cleaned exactly like :func:`read_table` (``columns`` as there).
+    0-based index and is cleaned exactly like :func:`read_table` (``columns`` and
+    ``decimal_comma`` as there).
     """
-    p, sep = _check_path(path)
+    p, sep = _check_path(path, decimal_comma)
     first = 0
     if sep is None:
         import pyarrow.parquet as pq
@@ -97,7 +104,8 @@ def iter_table(
                     chunk = next(reader, None)
                 if chunk is None:
                     break
-                chunk = _finish_csv_frame(chunk.reset_index(drop=True), names, p)
+                chunk = _finish_csv_frame(chunk.reset_index(drop=True), names, p, decimal_comma)
+                chunk.attrs["file_header"] = header
                 yield first, chunk
                 first += len(chunk)
         finally:
@@ -125,8 +133,9 @@ def _parquet_selection(names: Sequence[Any], columns: Sequence[str] | None) -> l
     return [n for n in names if str(n).strip() in wanted]
 
 
-def _check_path(path: str | os.PathLike[str]) -> tuple[Path, str | None]:
-    """Validate extension and existence before any parser gets a chance to fail obscurely."""
+def _check_path(path: str | os.PathLike[str], decimal_comma: bool = False) -> tuple[Path, str | None]:
+    """Validate extension and existence before any parser gets a chance to fail obscurely; the
+    delimiter (a .csv written with decimal commas is semicolon-separated)."""
     p = Path(path)
     ext = p.suffix.lower()
     if ext not in _EXTENSIONS:
@@ -146,7 +155,8 @@ def _check_path(path: str | os.PathLike[str]) -> tuple[Path, str | None]:
         raise InputError(f"{p}: cannot be read ({exc.strerror or exc}): check the file permissions") from None
     if size == 0:
         raise InputError(f"{p}: is empty: it needs a header line and data rows")
-    return p, _EXTENSIONS[ext]
+    sep = _EXTENSIONS[ext]
+    return p, (";" if decimal_comma and sep == "," else sep)
 
 
 def _csv_kwargs(sep: str) -> dict[str, Any]:
@@ -215,6 +225,9 @@ def _check_delimiter(p: Path, sep: str, only: str, row: str | None) -> None:
                 hint = "rename it to .tsv"
             elif other == ",":
                 hint = "rename it to .csv"
+            elif other == ";" and sep == ",":
+                hint = ("pass --decimal-comma if its numbers are written 6,8 (a .csv is then read as "
+                        "semicolon-separated), or re-save it comma-separated")
             else:
                 hint = "re-save it comma-separated as .csv (or tab-separated as .tsv)"
             raise InputError(
@@ -254,9 +267,12 @@ class _csv_errors:
             else:
                 line, saw = self._find_long_row()
             if line:
+                semicolons = self.sep == "," and ";" in ",".join(self.header)
+                hint = (" or, if the file is semicolon-separated with numbers written 6,8, pass --decimal-comma"
+                        if semicolons else "")
                 raise InputError(
                     f"{p}: line {line} has {saw} fields but the header has {len(self.header)}: "
-                    f"fix that row (quote values containing '{printable(self.sep)}')"
+                    f"fix that row (quote values containing '{printable(self.sep)}'){hint}"
                 ) from None
             raise InputError(f"{p}: cannot be parsed as {_DELIMITER_NAMES[self.sep]}-separated text ({shorten(str(exc))}): check quoting and delimiters") from None
         return False
@@ -274,8 +290,9 @@ class _csv_errors:
         return 0, 0
 
 
-def _finish_csv_frame(df: pd.DataFrame, header: list[str], p: Path) -> pd.DataFrame:
-    """Put back the exact header names and apply the missing-value rules."""
+def _finish_csv_frame(df: pd.DataFrame, header: list[str], p: Path, decimal_comma: bool = False) -> pd.DataFrame:
+    """Put back the exact header names and apply the missing-value rules (and, for a file with
+    decimal commas, rewrite its numbers with points)."""
     if not header:  # a column selection that matched nothing: keep the row count only
         return df.iloc[:, :0]
     if len(df.columns) != len(header):  # defensive: pandas and csv disagree on the header
@@ -284,6 +301,8 @@ def _finish_csv_frame(df: pd.DataFrame, header: list[str], p: Path) -> pd.DataFr
     _check_short_rows(df, p)
     for col in header:
         df[col] = clean_text(df[col])
+        if decimal_comma:
+            df[col] = decimal_points(df[col])
     return df
 
 

@@ -15,9 +15,9 @@ import pandas as pd
 
 from ..errors import InputError
 from ..features import Feature, Table
-from .messages import check_finite, examples, plural, quote_list, suggest
+from .messages import check_finite, decimal_comma_message, examples, plural, quote_list, suggest
 from .reading import read_table
-from .values import category_series, is_boolean, parse_numbers, plain, sort_labels
+from .values import category_series, decimal_comma_only, is_boolean, parse_numbers, plain, sort_labels
 
 #: More levels than this cannot be one-hot encoded sensibly by the exports.
 MAX_CATEGORIES = 200
@@ -39,9 +39,10 @@ def load(
     categorical: Sequence[str] = (),
     ignore: Sequence[str] = (),
     min_rows: int = 40,
+    decimal_comma: bool = False,
 ) -> Table:
     """Read a file and prepare it (see :func:`read_table`, :func:`prepare`)."""
-    df = read_table(path)
+    df = read_table(path, decimal_comma=decimal_comma)
     return prepare(
         df, target, task=task, categorical=categorical, ignore=ignore, source=str(path), min_rows=min_rows
     )
@@ -205,6 +206,9 @@ def _target(
     """Decide the task and return the typed target (float64 or str labels) and classes."""
     is_bool = is_boolean(y)
     values, bad = (np.full(len(y), np.nan), np.ones(len(y), bool)) if is_bool else parse_numbers(y)
+    if not is_bool and task != "classification" and decimal_comma_only(y, bad):
+        raise InputError(decimal_comma_message(source, f"target '{target}'", examples(y, bad, lines),
+                                               "or --task classification to take them as classes"))
     numeric = not is_bool and not bad.any()
     share_numeric = 1.0 - bad.mean()
     if not numeric and not is_bool and share_numeric >= _MOSTLY_NUMERIC and task != "classification":
@@ -276,6 +280,9 @@ def _type_column(
     if not force_cat and not is_boolean(s):
         values_full, bad_full = parse_numbers(full)  # parse once: this is the slow step on big files
         values, bad = values_full[keep], bad_full[keep]
+        if decimal_comma_only(s, bad):
+            raise InputError(decimal_comma_message(source, f"column '{col}'", examples(s, bad, lines),
+                                                   f"or --categorical {shlex.quote(col)} to keep them as categories"))
         if not bad.any():
             kind = "numeric"
         elif 1.0 - bad.sum() / present.sum() >= _MOSTLY_NUMERIC:

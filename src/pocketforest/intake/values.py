@@ -20,6 +20,9 @@ MISSING_TOKENS: frozenset[str] = frozenset({"", "NA", "N/A", "NaN", "nan", "null
 
 _INT_RE = re.compile(r"^[+-]?\d+$")
 _NUMBER_RE = re.compile(r"^[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?$")
+#: a number written with a decimal comma, as spreadsheets save it where the comma is the decimal
+#: mark: 6,8  -0,25  ,5  1,5E-3 (no thousands separators: "1.234,5" stays text)
+DECIMAL_COMMA = r"[+-]?(?:\d+,\d*|,\d+)(?:[eE][+-]?\d+)?"
 _LEADING_ZERO_RE = re.compile(r"^[+-]?0\d")
 
 
@@ -43,6 +46,27 @@ def clean_text(s: pd.Series) -> pd.Series:
     else:
         return s
     return s.mask(s.isin(MISSING_TOKENS))
+
+
+def decimal_points(s: pd.Series) -> pd.Series:
+    """A text column with every decimal-comma number rewritten with a point (6,8 -> 6.8) and all
+    other text unchanged: how a file read with ``--decimal-comma`` reaches the typing step."""
+    if not _is_textlike(s):
+        return s
+    comma = s.str.fullmatch(DECIMAL_COMMA, na=False).to_numpy(dtype=bool)
+    if not comma.any():
+        return s
+    out = s.copy()
+    out[comma] = s[comma].str.replace(",", ".", regex=False)
+    return out
+
+
+def decimal_comma_only(s: pd.Series, bad: np.ndarray) -> bool:
+    """True when every value of ``s`` that is not a number (``bad``, from :func:`parse_numbers`)
+    is one written with a decimal comma: a numeric column saved in a decimal-comma locale."""
+    if not bad.any():
+        return False
+    return bool(s[bad].astype(str).str.fullmatch(DECIMAL_COMMA).all())
 
 
 def category_text(value: Any) -> str:

@@ -187,13 +187,13 @@ def score_frame(scorer: Scorer, manifest: dict, frame: pd.DataFrame, keep: list[
 
 def score_file(bundle: str, data: str, model: str, out: str | None, keep: list[str] | None = None,
                quiet: bool = False, chunk_rows: int = CHUNK_ROWS, threads: int | None = -1,
-               explain: bool = False) -> int:
+               explain: bool = False, decimal_comma: bool = False) -> int:
     """Write predictions to ``out`` (CSV or Parquet by extension) or CSV on stdout; returns rows scored.
 
     ``data`` is a file, a folder of files or a glob pattern (:func:`pieces.input_files`); the
     files are scored one after another into the one output, in order. ``threads`` chunks are
     scored at once (-1: one per core), each with a single-threaded session call. ``explain`` adds
-    the surrogate's reasons per row (:func:`_why`)."""
+    the surrogate's reasons per row (:func:`_why`). ``decimal_comma``: as in :func:`intake.read_table`."""
     manifest = read_manifest(bundle)
     scorer = Scorer(bundle, model, manifest)
     features = features_of(manifest)
@@ -215,7 +215,8 @@ def score_file(bundle: str, data: str, model: str, out: str | None, keep: list[s
 
         def chunks():
             for path in files:
-                for first_row, chunk in iter_table(path, chunksize=chunk_rows, columns=wanted):
+                for first_row, chunk in iter_table(path, chunksize=chunk_rows, columns=wanted,
+                                                   decimal_comma=decimal_comma):
                     if first_row == 0:
                         absent = [k for k in keep if k not in chunk.columns]
                         if absent:
