@@ -66,7 +66,8 @@ def decimal_comma_only(s: pd.Series, bad: np.ndarray) -> bool:
     is one written with a decimal comma: a numeric column saved in a decimal-comma locale."""
     if not bad.any():
         return False
-    return bool(s[bad].astype(str).str.fullmatch(DECIMAL_COMMA).all())
+    distinct = pd.Series(pd.unique(s[bad].to_numpy(dtype=object)), dtype=object)   # few, for categories
+    return bool(distinct.astype(str).str.fullmatch(DECIMAL_COMMA).all())
 
 
 def category_text(value: Any) -> str:
