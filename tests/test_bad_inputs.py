@@ -6,7 +6,8 @@ continuing is right (an empty feature column, unseen categories, values beyond t
 range, a byte-order mark) the run succeeds and says so with a `warning:` line or a flag column.
 
 Files live in tests/bad_inputs/ (see its README); inputs that need odd bytes (latin-1, BOM,
-truncated Parquet, damaged bundles) are built here. All cases run once, in parallel, in a module
+truncated Parquet, damaged bundles) or are copies of the valid table in another spelling
+(semicolons and decimal commas) are built here. All cases run once, in parallel, in a module
 fixture; each case has its own working folder so leftovers can be checked.
 """
 from __future__ import annotations

@@ -130,6 +130,7 @@ def test_decimal_comma_file_reads_like_the_decimal_point_file(tmp_path):
         got = load(path, "y", decimal_comma=True)
         pd.testing.assert_frame_equal(got.data, want.data)
         assert [f.to_dict() for f in got.features] == [f.to_dict() for f in want.features]
+    raises(r"looks comma-separated.*drop --decimal-comma", read_table, plain, decimal_comma=True)
     chunks = [c for _, c in iter_table(semi, chunksize=10, decimal_comma=True)]
     pd.testing.assert_frame_equal(pd.concat(chunks, ignore_index=True), read_table(semi, decimal_comma=True))
 

@@ -223,6 +223,8 @@ def _check_delimiter(p: Path, sep: str, only: str, row: str | None) -> None:
         if row is None or other in row:
             if other == "\t":
                 hint = "rename it to .tsv"
+            elif other == "," and sep == ";":   # only with --decimal-comma
+                hint = "drop --decimal-comma (with it a .csv is read as semicolon-separated)"
             elif other == ",":
                 hint = "rename it to .csv"
             elif other == ";" and sep == ",":
