@@ -51,7 +51,7 @@ def _cases(ctx: dict) -> dict[str, tuple[list[str], int]]:
         "mixed delimiters": (_distill(c / "mixed_delimiters.csv", "--out", out), 2),
         "semicolons in a .csv": (_distill(c / "semicolon_separated.csv", "--out", out), 2),
         "decimal commas without --decimal-comma": (_distill(ctx["comma_tsv"], "--out", out), 2),
-        "--decimal-comma with --sample": (_distill(ctx["comma_csv"], "--out", out, "--decimal-comma", "--sample", "50"), 2),
+        "--decimal-comma on a Parquet file": (_distill(ctx["parquet"], "--out", out, "--decimal-comma"), 2),
         "ragged row": (_distill(c / "ragged_rows.csv", "--out", out), 2),
         "target is a row id": (_distill(c / "target_is_id.csv", "--out", out, target="id"), 2),
         "huge category count": (_distill(c / "huge_category_count.csv", "--out", out), 2),
@@ -145,7 +145,7 @@ def corpus(tmp_path_factory) -> dict:
 
     ctx = {
         "dir": base, "bundle": bundle, "latin1": gen / "latin1.csv", "bom": gen / "bom.csv",
-        "comma_csv": gen / "decimal_comma.csv", "comma_tsv": gen / "decimal_comma.tsv",
+        "comma_csv": gen / "decimal_comma.csv", "comma_tsv": gen / "decimal_comma.tsv", "parquet": gen / "whole.parquet",
         "truncated": gen / "truncated.parquet", "folder": gen / "folder.csv",
         "no_forest": damaged("no_forest", lambda d: (d / "forest.onnx").unlink()),
         "altered_forest": damaged("altered_forest", lambda d: (d / "forest.onnx").write_bytes((d / "forest.onnx").read_bytes() + b"\0")),
@@ -190,7 +190,7 @@ def _leftovers(work: Path) -> list[str]:
 
 ERROR_CASES = [name for name in _cases({k: Path("/x") for k in (
     "bundle", "latin1", "truncated", "folder", "no_forest", "altered_forest", "bad_manifest", "dir",
-    "comma_csv", "comma_tsv")})]
+    "comma_csv", "comma_tsv", "parquet")})]
 
 
 def test_corpus_is_large_enough():

@@ -179,14 +179,11 @@ def _run_distill(data: str, target: str, args: argparse.Namespace) -> int:
     if Path(out).exists() and not args.force:
         raise InputError(f"{out} already exists: choose another --out or pass --force to replace it")
     drawn = None
-    if args.decimal_comma and args.sample is not None:
-        raise InputError("--decimal-comma reads the whole file: drop --sample, or save the file with decimal "
-                         "points to sample it")
     if args.sample is not None:
         from .intake import prepare
         from .sample import draw
         drawn = draw(data, target, args.sample, args.seed, task=args.task, categorical=args.categorical,
-                     ignore=args.ignore)
+                     ignore=args.ignore, decimal_comma=args.decimal_comma)
         table = prepare(drawn.sample, target, task=args.task, categorical=args.categorical, ignore=args.ignore,
                         source=data)
     else:

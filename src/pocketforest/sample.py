@@ -36,7 +36,8 @@ import pandas as pd
 from .errors import InputError
 from .intake import MAX_CATEGORIES, MISSING_TOKENS
 from .intake.pieces import input_files
-from .intake.reading import _csv_header
+from .intake.reading import _csv_header, parquet_decimal_comma
+from .intake.values import DECIMAL_COMMA
 
 #: each level gets at least this many sample rows (or all its rows when it has fewer)
 LEVEL_FLOOR = 10
@@ -82,11 +83,17 @@ def _connect(tmp: str):
     return con
 
 
-def _source(con, files: list[Path]) -> tuple[list[str], bool]:
+def _source(con, files: list[Path], decimal_comma: bool = False) -> tuple[list[str], bool]:
     """A view ``src`` over the files (Parquet rows carry ``__file`` and ``__row``, their place in
-    the input); returns the data's column names and whether they are text (CSV)."""
+    the input); returns the data's column names and whether they are text (CSV).
+
+    ``decimal_comma`` (CSV/TSV): a .csv is semicolon-separated, and the view rewrites each cell
+    that is a number written 6,8 with a point, as intake's reader does, so the strata, the
+    seeded order and the sample all see the numbers intake will type."""
     paths = "[" + ", ".join(_lit(str(f)) for f in files) + "]"  # a view cannot take parameters
     if files[0].suffix.lower() == ".parquet":
+        if decimal_comma:
+            raise InputError(parquet_decimal_comma(files[0]))
         order = "CASE filename " + " ".join(f"WHEN {_lit(str(f))} THEN {i}" for i, f in enumerate(files)) + " END"
         try:
             con.execute(f"CREATE VIEW src AS SELECT * EXCLUDE (filename, file_row_number), {order} AS __file, "
@@ -96,14 +103,18 @@ def _source(con, files: list[Path]) -> tuple[list[str], bool]:
             raise InputError(f"{files[0]}: cannot be read as Parquet by DuckDB ({str(exc).splitlines()[0]}): "
                              "the files may be corrupt or have different columns") from None
         return names, False
-    sep = "\t" if files[0].suffix.lower() == ".tsv" else ","
+    sep = "\t" if files[0].suffix.lower() == ".tsv" else (";" if decimal_comma else ",")
     header = _csv_header(files[0], sep)  # intake's checks: blank and duplicate names
     for f in files[1:]:
         if _csv_header(f, sep) != header:
             raise InputError(f"{f}: its header differs from {files[0]}'s: every file must have the same columns")
     # every cell as text, so intake types the sample exactly as it types a whole file
     columns = "{" + ", ".join(f"{_lit(h)}: 'VARCHAR'" for h in header) + "}"
-    con.execute(f"CREATE VIEW src AS SELECT * FROM read_csv({paths}, header = true, delim = {_lit(sep)}, "
+    cells = "*"
+    if decimal_comma:
+        cells = ", ".join(f"CASE WHEN regexp_full_match(trim({_q(h)}), {_lit(DECIMAL_COMMA)}) "
+                          f"THEN replace(trim({_q(h)}), ',', '.') ELSE {_q(h)} END AS {_q(h)}" for h in header)
+    con.execute(f"CREATE VIEW src AS SELECT {cells} FROM read_csv({paths}, header = true, delim = {_lit(sep)}, "
                 f"quote = '\"', escape = '\"', auto_detect = false, columns = {columns}, strict_mode = true)")
     return header, True
 
@@ -116,8 +127,9 @@ def _present(col: str, text: bool) -> str:
 
 
 def draw(data: str, target: str, n: int, seed: int, *, task: str = "auto", categorical: Sequence[str] = (),
-         ignore: Sequence[str] = (), check_rows: int | None = None) -> Drawn:
-    """Draw ``n`` rows stratified as the module describes, and ``check_rows`` left-out rows."""
+         ignore: Sequence[str] = (), check_rows: int | None = None, decimal_comma: bool = False) -> Drawn:
+    """Draw ``n`` rows stratified as the module describes, and ``check_rows`` left-out rows
+    (``decimal_comma``: as in :func:`intake.read_table`)."""
     if n < 1:
         raise InputError(f"--sample {n}: give the number of rows to sample (at least 1)")
     import duckdb
@@ -126,7 +138,7 @@ def draw(data: str, target: str, n: int, seed: int, *, task: str = "auto", categ
     tmp = tempfile.mkdtemp(prefix="pf-duckdb-")
     try:
         con = _connect(tmp)
-        names, text = _source(con, files)
+        names, text = _source(con, files, decimal_comma)
         if target not in names:
             raise InputError(f"{data}: no target column '{target}' (columns: {', '.join(names[:20])})")
         for flag, cols in (("--categorical", categorical), ("--ignore", ignore)):

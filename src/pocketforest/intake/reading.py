@@ -156,7 +156,13 @@ def _check_path(path: str | os.PathLike[str], decimal_comma: bool = False) -> tu
     if size == 0:
         raise InputError(f"{p}: is empty: it needs a header line and data rows")
     sep = _EXTENSIONS[ext]
+    if decimal_comma and sep is None:
+        raise InputError(parquet_decimal_comma(p))
     return p, (";" if decimal_comma and sep == "," else sep)
+
+
+def parquet_decimal_comma(p: Path) -> str:
+    return f"{p}: --decimal-comma is for .csv and .tsv files: a Parquet file stores its numbers as numbers; drop the option"
 
 
 def _csv_kwargs(sep: str) -> dict[str, Any]:
