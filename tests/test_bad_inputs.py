@@ -88,7 +88,6 @@ def _cases(ctx: dict) -> dict[str, tuple[list[str], int]]:
         "score: output type": (["score", str(b), str(c / "score_far_outside.csv"), "--model", "forest", "--out", "{DIR}/p.xlsx"], 2),
         "score: --keep unknown column": score(c / "score_far_outside.csv", "--keep", "row_id"),
         "score: decimal commas without --decimal-comma": score(ctx["comma_csv"]),
-        "score: --decimal-comma with --engine dask": score(ctx["comma_csv"], "--decimal-comma", "--engine", "dask"),
         "score: bundle missing forest.onnx": score(c / "score_far_outside.csv", bundle=ctx["no_forest"]),
         "score: bundle with altered forest.onnx": score(c / "score_far_outside.csv", bundle=ctx["altered_forest"]),
         "score: manifest not JSON": score(c / "score_far_outside.csv", bundle=ctx["bad_manifest"]),

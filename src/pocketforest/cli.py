@@ -241,11 +241,9 @@ def _run(args: argparse.Namespace) -> int:
         if args.engine == "dask":
             if args.explain:
                 raise InputError("--explain runs with --engine single for now: drop one of them")
-            if args.decimal_comma:
-                raise InputError("--decimal-comma runs with --engine single for now: drop one of them")
             from .scoring.cluster import score_files
             n = score_files(args.bundle, args.data, args.model, args.out, args.keep, scheduler=args.scheduler,
-                            quiet=args.quiet)
+                            quiet=args.quiet, decimal_comma=args.decimal_comma)
         else:
             from .scoring.score import score_file
             n = score_file(args.bundle, args.data, args.model, args.out, args.keep, quiet=args.quiet,

@@ -50,6 +50,27 @@ def _files(folder, n_files=3, rows=240, seed=20):
     return folder
 
 
+def test_a_decimal_comma_csv_scores_on_the_cluster_like_the_plain_file(bundles, client, tmp_path):
+    """Two CSV files saved where the comma is the decimal mark (semicolons, 6,8), scored with
+    decimal_comma on the cluster: the single-machine predictions of the same rows written plainly."""
+    plain, comma = tmp_path / "plain", tmp_path / "comma"
+    plain.mkdir()
+    comma.mkdir()
+    for i in range(2):
+        df = synthetic_table(n=150, seed=40 + i).drop(columns="y")
+        df.to_csv(plain / f"part.{i}.csv", index=False)
+        df.to_csv(comma / f"part.{i}.csv", index=False, sep=";", decimal=",")
+    assert "," in (comma / "part.0.csv").read_text().splitlines()[1]
+    single = tmp_path / "single.parquet"
+    score_file(str(bundles["regression"]), str(plain), "equation", str(single), quiet=True)
+    out = tmp_path / "out"
+    n = score_files(str(bundles["regression"]), str(comma), "equation", str(out), client=client, quiet=True,
+                    decimal_comma=True)
+    assert n == 300
+    # the same numbers reach the same function: equal, not merely close
+    pd.testing.assert_frame_equal(pd.read_parquet(single), pd.read_parquet(out))
+
+
 @pytest.mark.parametrize("kind", ["regression", "multiclass"])
 def test_cluster_score_equals_single_machine_score_row_for_row(bundles, client, tmp_path, kind):
     data = _files(tmp_path / "in")

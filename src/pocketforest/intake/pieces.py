@@ -20,7 +20,8 @@ import pandas as pd
 from ..errors import InputError
 from ..features import Feature
 from .coerce import coerce_for_scoring
-from .reading import _check_path, _csv_header, _parquet_error, _parquet_selection, iter_table, parquet_chunks
+from .reading import (_check_path, _csv_header, _parquet_error, _parquet_selection, iter_table, parquet_chunks,
+                      parquet_decimal_comma)
 
 DATA_SUFFIXES = (".csv", ".tsv", ".parquet")
 #: rows per cluster piece when a Parquet file has several row groups (a piece is one task)
@@ -90,14 +91,18 @@ def check_columns(path: Path, names: Sequence[str], needed: Sequence[str], keep:
 
 
 def plan_pieces(files: Sequence[Path], needed: Sequence[str], keep: Sequence[str], *,
-                piece_rows: int | None = None, head_check: list[Feature] | None = None) -> list[Piece]:
+                piece_rows: int | None = None, head_check: list[Feature] | None = None,
+                decimal_comma: bool = False) -> list[Piece]:
     """Pieces in input order, after checking every file's columns from its header or Parquet
     schema (no data read) and typing the first rows of the first file (``head_check``), so the
-    usual mistakes fail on the client before a worker starts."""
+    usual mistakes fail on the client before a worker starts (``decimal_comma``: as in
+    :func:`.reading.read_table`; pass the same to :func:`iter_piece`)."""
     limit = int(piece_rows or PIECE_ROWS)
     pieces: list[Piece] = []
     for path in files:
         if path.suffix.lower() == ".parquet":
+            if decimal_comma:
+                raise InputError(parquet_decimal_comma(path))
             names, pf = _parquet_names(path)
             check_columns(path, names, needed, keep)
             meta = pf.metadata
@@ -113,21 +118,24 @@ def plan_pieces(files: Sequence[Path], needed: Sequence[str], keep: Sequence[str
             if run:
                 pieces.append(Piece(str(path), tuple(run), first, run_rows))
         else:
-            check_columns(path, _csv_header(path, "\t" if path.suffix.lower() == ".tsv" else ","), needed, keep)
+            _, sep = _check_path(path, decimal_comma)
+            check_columns(path, _csv_header(path, sep), needed, keep)
             pieces.append(Piece(str(path), None, 0, None))
     if head_check is not None and files:
-        for first_row, chunk in iter_table(files[0], chunksize=HEAD_ROWS, columns=list(needed)):
+        for first_row, chunk in iter_table(files[0], chunksize=HEAD_ROWS, columns=list(needed),
+                                           decimal_comma=decimal_comma):
             coerce_for_scoring(chunk, head_check, source=str(files[0]), first_row=first_row)
             break
     return pieces
 
 
-def iter_piece(piece: Piece, columns: Sequence[str], chunk_rows: int) -> Iterator[tuple[int, pd.DataFrame]]:
+def iter_piece(piece: Piece, columns: Sequence[str], chunk_rows: int,
+               decimal_comma: bool = False) -> Iterator[tuple[int, pd.DataFrame]]:
     """``(first_row, frame)`` chunks of one piece, cleaned exactly as :func:`.reading.iter_table` cleans
     the whole file (first_row counts from the start of the file, for error line numbers)."""
     path = Path(piece.path)
     if piece.row_groups is None:
-        yield from iter_table(path, chunksize=chunk_rows, columns=columns)
+        yield from iter_table(path, chunksize=chunk_rows, columns=columns, decimal_comma=decimal_comma)
         return
     _, pf = _parquet_names(path)
     try:

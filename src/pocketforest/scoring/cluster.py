@@ -213,13 +213,14 @@ def check_out_folder(out: str | None, inputs: Sequence[Path]) -> Path:
 
 def score_files(bundle: str | os.PathLike, data: str, model: str, out: str | None, keep: Sequence[str] = (), *,
                 scheduler: str | None = None, quiet: bool = False, chunk_rows: int | None = None,
-                piece_rows: int | None = None, client=None) -> int:
+                piece_rows: int | None = None, client=None, decimal_comma: bool = False) -> int:
     """`score --engine dask`: score every file DATA names (a file, a folder or a glob pattern) on a
     Dask cluster, writing ``part-NNNNN.parquet`` files into the folder ``out`` in input order.
 
     Everything a user can get wrong is checked on the client first; the output folder is built
     under a temporary name beside ``out`` and renamed when every piece is done, so a failure
-    leaves nothing behind. Returns the number of rows scored.
+    leaves nothing behind. Returns the number of rows scored. ``decimal_comma``: as in
+    :func:`intake.read_table`.
     """
     from ..intake.pieces import input_files, plan_pieces
     from .score import CHUNK_ROWS, Stray, check_keep, features_of
@@ -232,7 +233,7 @@ def score_files(bundle: str | os.PathLike, data: str, model: str, out: str | Non
     check_keep(manifest, keep, data)
     features = features_of(manifest)
     pieces = plan_pieces(files, [f.name for f in features], keep, piece_rows=piece_rows,
-                         head_check=features)
+                         head_check=features, decimal_comma=decimal_comma)
     tmp = Path(tempfile.mkdtemp(prefix=f".{dest.name}.pf-score-", dir=str(dest.resolve().parent)))
     width = max(5, len(str(len(pieces))))
     own_client = client is None
@@ -252,7 +253,7 @@ def score_files(bundle: str | os.PathLike, data: str, model: str, out: str | Non
                                      "check the address (such as tcp://host:8786)") from None
         outs = [str(tmp / f"part-{i:0{width}d}.parquet") for i in range(len(pieces))]
         futures = client.map(_score_piece, pieces, outs, ref=ref, keep=keep, chunk_rows=int(chunk_rows or CHUNK_ROWS),
-                             pure=False)
+                             decimal_comma=decimal_comma, pure=False)
         from distributed import as_completed
         index = {f.key: i for i, f in enumerate(futures)}
         states: list[dict | None] = [None] * len(futures)
@@ -286,7 +287,8 @@ def score_files(bundle: str | os.PathLike, data: str, model: str, out: str | Non
     return total
 
 
-def _score_piece(piece, out: str, *, ref: BundleRef, keep: list[str], chunk_rows: int) -> tuple[int, dict]:
+def _score_piece(piece, out: str, *, ref: BundleRef, keep: list[str], chunk_rows: int,
+                 decimal_comma: bool = False) -> tuple[int, dict]:
     """One piece (a file, or a run of a Parquet file's row groups) scored on a worker and written to
     ``out``; returns its row count and its tally of values outside the training envelope."""
     from ..intake.pieces import iter_piece
@@ -297,7 +299,7 @@ def _score_piece(piece, out: str, *, ref: BundleRef, keep: list[str], chunk_rows
     stray, sink, rows = Stray(features), ParquetSink(out), 0
     try:
         wanted = [f.name for f in features] + keep
-        for first_row, chunk in iter_piece(piece, wanted, chunk_rows):
+        for first_row, chunk in iter_piece(piece, wanted, chunk_rows, decimal_comma):
             frame = score_chunk(loaded.scorer, loaded.manifest, chunk, keep, source=str(piece.path),
                                 first_row=first_row, stray=stray)
             sink.write(frame)
