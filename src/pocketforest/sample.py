@@ -36,7 +36,7 @@ import pandas as pd
 from .errors import InputError
 from .intake import MAX_CATEGORIES, MISSING_TOKENS
 from .intake.pieces import input_files
-from .intake.reading import _csv_header, parquet_decimal_comma
+from .intake.reading import _check_path, _csv_header
 from .intake.values import DECIMAL_COMMA
 
 #: each level gets at least this many sample rows (or all its rows when it has fewer)
@@ -91,9 +91,8 @@ def _source(con, files: list[Path], decimal_comma: bool = False) -> tuple[list[s
     that is a number written 6,8 with a point, as intake's reader does, so the strata, the
     seeded order and the sample all see the numbers intake will type."""
     paths = "[" + ", ".join(_lit(str(f)) for f in files) + "]"  # a view cannot take parameters
-    if files[0].suffix.lower() == ".parquet":
-        if decimal_comma:
-            raise InputError(parquet_decimal_comma(files[0]))
+    _, sep = _check_path(files[0], decimal_comma)   # intake's delimiter rule (and no decimal commas in Parquet)
+    if sep is None:
         order = "CASE filename " + " ".join(f"WHEN {_lit(str(f))} THEN {i}" for i, f in enumerate(files)) + " END"
         try:
             con.execute(f"CREATE VIEW src AS SELECT * EXCLUDE (filename, file_row_number), {order} AS __file, "
@@ -103,7 +102,6 @@ def _source(con, files: list[Path], decimal_comma: bool = False) -> tuple[list[s
             raise InputError(f"{files[0]}: cannot be read as Parquet by DuckDB ({str(exc).splitlines()[0]}): "
                              "the files may be corrupt or have different columns") from None
         return names, False
-    sep = "\t" if files[0].suffix.lower() == ".tsv" else (";" if decimal_comma else ",")
     header = _csv_header(files[0], sep)  # intake's checks: blank and duplicate names
     for f in files[1:]:
         if _csv_header(f, sep) != header:

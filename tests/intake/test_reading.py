@@ -116,8 +116,8 @@ def test_unclosed_quote_is_an_input_error(tmp_path):
 
 def test_decimal_comma_file_reads_like_the_decimal_point_file(tmp_path):
     """A table saved where the comma is the decimal mark: semicolon-separated .csv (or .tsv) with
-    numbers written 6,8 (the convention R's read.csv2 reads; common practice for spreadsheets in
-    such locales). Read with decimal_comma it gives the same typed table as the plain file."""
+    numbers written 6,8 (the convention R's read.csv2 reads, from memory; common practice for
+    spreadsheets in such locales). Read with decimal_comma it gives the same typed table as the plain file."""
     base = frame(45).assign(x=lambda d: d["x"].astype(float) / 8 - 2, y=lambda d: d["y"].astype(float))
     plain = write(tmp_path, "plain.csv", csv_text(base))
     semi = tmp_path / "semi.csv"

@@ -10,7 +10,7 @@ import pandas as pd
 
 from ..errors import InputError
 from ..features import Feature
-from .messages import check_finite, decimal_comma_message, examples, plural, quote_list
+from .messages import SEMICOLON_HINT, check_finite, decimal_comma_message, examples, plural, quote_list
 from .values import category_series, decimal_comma_only, parse_numbers, plain
 
 
@@ -27,8 +27,7 @@ def coerce_for_scoring(
     if missing_cols:
         # a semicolon-separated .csv read as comma-separated has its names run together
         semicolons = any(";" in str(c) for c in df.attrs.get("file_header", df.columns))
-        hint = ("; the header holds semicolons: if the file is semicolon-separated with numbers written 6,8, "
-                "pass --decimal-comma" if semicolons else "")
+        hint = f"; the header holds semicolons: {SEMICOLON_HINT}" if semicolons else ""
         raise InputError(
             f"{source}: missing column(s) {quote_list(missing_cols)} that the model needs: add them "
             f"(cells may be empty){hint}"

@@ -82,3 +82,7 @@ def decimal_comma_message(source: str, what: str, shown: str, other: str) -> str
     read as text they would silently become categories (or classes)."""
     return (f"{source}: {what} holds numbers written with a decimal comma ({shown}): pass --decimal-comma "
             f"to read them as numbers (a .csv is then read as semicolon-separated), {other}")
+
+
+#: the hint added where a semicolon-separated file may have been read as comma-separated
+SEMICOLON_HINT = "if the file is semicolon-separated with numbers written 6,8, pass --decimal-comma"

@@ -20,8 +20,7 @@ import pandas as pd
 from ..errors import InputError
 from ..features import Feature
 from .coerce import coerce_for_scoring
-from .reading import (_check_path, _csv_header, _parquet_error, _parquet_selection, iter_table, parquet_chunks,
-                      parquet_decimal_comma)
+from .reading import _check_path, _csv_header, _parquet_error, _parquet_selection, iter_table, parquet_chunks
 
 DATA_SUFFIXES = (".csv", ".tsv", ".parquet")
 #: rows per cluster piece when a Parquet file has several row groups (a piece is one task)
@@ -100,9 +99,8 @@ def plan_pieces(files: Sequence[Path], needed: Sequence[str], keep: Sequence[str
     limit = int(piece_rows or PIECE_ROWS)
     pieces: list[Piece] = []
     for path in files:
-        if path.suffix.lower() == ".parquet":
-            if decimal_comma:
-                raise InputError(parquet_decimal_comma(path))
+        _, sep = _check_path(path, decimal_comma)   # the delimiter rule, and no decimal commas in Parquet
+        if sep is None:
             names, pf = _parquet_names(path)
             check_columns(path, names, needed, keep)
             meta = pf.metadata
@@ -118,7 +116,6 @@ def plan_pieces(files: Sequence[Path], needed: Sequence[str], keep: Sequence[str
             if run:
                 pieces.append(Piece(str(path), tuple(run), first, run_rows))
         else:
-            _, sep = _check_path(path, decimal_comma)
             check_columns(path, _csv_header(path, sep), needed, keep)
             pieces.append(Piece(str(path), None, 0, None))
     if head_check is not None and files:

@@ -18,7 +18,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import InputError
-from .messages import printable, quote_list, shorten
+from .messages import SEMICOLON_HINT, printable, quote_list, shorten
 from .values import clean_text, decimal_points, plain
 
 _EXTENSIONS = {".csv": ",", ".tsv": "\t", ".parquet": None}
@@ -157,11 +157,11 @@ def _check_path(path: str | os.PathLike[str], decimal_comma: bool = False) -> tu
         raise InputError(f"{p}: is empty: it needs a header line and data rows")
     sep = _EXTENSIONS[ext]
     if decimal_comma and sep is None:
-        raise InputError(parquet_decimal_comma(p))
+        raise InputError(_parquet_decimal_comma(p))
     return p, (";" if decimal_comma and sep == "," else sep)
 
 
-def parquet_decimal_comma(p: Path) -> str:
+def _parquet_decimal_comma(p: Path) -> str:
     return f"{p}: --decimal-comma is for .csv and .tsv files: a Parquet file stores its numbers as numbers; drop the option"
 
 
@@ -276,8 +276,7 @@ class _csv_errors:
                 line, saw = self._find_long_row()
             if line:
                 semicolons = self.sep == "," and ";" in ",".join(self.header)
-                hint = (" or, if the file is semicolon-separated with numbers written 6,8, pass --decimal-comma"
-                        if semicolons else "")
+                hint = f" or, {SEMICOLON_HINT}" if semicolons else ""
                 raise InputError(
                     f"{p}: line {line} has {saw} fields but the header has {len(self.header)}: "
                     f"fix that row (quote values containing '{printable(self.sep)}'){hint}"
