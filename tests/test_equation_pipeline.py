@@ -2,6 +2,7 @@
 Invented data with a known structure."""
 from __future__ import annotations
 
+import dataclasses
 import json
 import shutil
 
@@ -9,6 +10,7 @@ import numpy as np
 import pandas as pd
 
 from conftest import run_cli
+from pocketforest import equation
 from pocketforest.intake import prepare
 from pocketforest.pipeline import Settings, distill
 from pocketforest.scoring.verify import verify_bundle
@@ -78,6 +80,25 @@ def test_count_outcome_gets_the_poisson_family_by_default():
     assert result.equation.family == "poisson" and result.equation.link == "log"
     assert any("Poisson GLM with a log link by default" in n for n in result.equation.notes)
     assert np.all(result.predict(df, "equation") > 0)
+
+
+def test_skewed_counts_without_zeros_stay_gaussian_with_a_note_naming_the_count_family():
+    """Constructed lengths of stay: 1 + Poisson counts with a long tail (no zeros, so not a count
+    by the zero rule). The default stays Gaussian, and a note suggests --family poisson; a
+    symmetric whole-number outcome (rounded normal scores around 100) gets no such note."""
+    rng = np.random.default_rng(5)
+    df = _counts(n=400, seed=5, base=0.8)
+    df["stay"] = 1 + df.pop("events") + rng.poisson(np.exp(rng.normal(0, 1.0, len(df))))
+    assert (df.stay == 0).sum() == 0 and equation.skewed_count(df.stay.to_numpy()) is not None
+    settings = Settings(trees=20, seed=4, quiet=True, bootstrap=100, nested_repeats=0)
+    result = distill(prepare(df, "stay", task="regression"), settings)
+    assert result.equation.family == "gaussian"
+    assert any("try --family poisson" in n for n in result.equation.notes)
+    asked = distill(prepare(df, "stay", task="regression"), dataclasses.replace(settings, family="gaussian"))
+    assert not any("try --family poisson" in n for n in asked.equation.notes)
+    df["score"] = np.round(100 + 15 * rng.normal(size=len(df)) + 5 * df.dose)
+    assert equation.skewed_count(df.score.to_numpy()) is None
+    assert equation.skewed_count(np.array([0, 0, 0, 1, 2, 30] * 20)) is None     # many zeros: already a count
 
 
 def test_multiclass_bundle_manifest_states_the_note(bundles):

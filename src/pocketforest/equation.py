@@ -46,6 +46,11 @@ COUNT_ZERO_SHARE = 0.10
 #: Pearson chi-square / residual df above which a Poisson fit's variance is too small and a
 #: negative binomial is suggested (common practice: 1 means no overdispersion).
 OVERDISPERSION = 2.0
+#: Skewness from which a whole-number outcome with few zeros (kept Gaussian by default) gets a note
+#: suggesting a count family: 1 is the usual line for "highly skewed" (common practice). On R
+#: COUNT's medpar (length of stay, skewness 3.7, no zeros) the Poisson equation's test R² was
+#: 0.124 and 0.063 against the Gaussian's 0.109 and 0.055 (seeds 1 and 2; seed 0 equal).
+SKEWED_COUNT = 1.0
 LP_MAX_ROWS = 20_000        # separation checked up front below this many rows x (K - 1)
 
 
@@ -164,6 +169,19 @@ def is_count(y: np.ndarray) -> bool:
     if len(v) == 0 or not np.all(np.isfinite(v)) or (v < 0).any() or (v != np.round(v)).any():
         return False
     return bool(np.mean(v == 0) >= COUNT_ZERO_SHARE and len(np.unique(v)) >= 3)
+
+
+def skewed_count(y: np.ndarray) -> float | None:
+    """The skewness of a whole-number outcome from zero up that :func:`is_count` leaves Gaussian
+    (few zeros), when it is at least :data:`SKEWED_COUNT`; otherwise None. Lengths of stay or
+    visit counts that start at 1 are counts all the same, and a Gaussian equation misses their
+    long tail."""
+    v = np.asarray(y, dtype=float)
+    if (len(v) < 3 or not np.all(np.isfinite(v)) or (v < 0).any() or (v != np.round(v)).any()
+            or is_count(v) or len(np.unique(v)) < 3):
+        return None
+    g = float(stats.skew(v))
+    return g if g >= SKEWED_COUNT else None
 
 
 def default_family(task: str, classes: list[str] | None, y: np.ndarray | None = None) -> str:

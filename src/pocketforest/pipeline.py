@@ -18,7 +18,7 @@ from . import __version__
 from .defaults import TREE_MARGIN, TREES
 from .design import fill_values, make_preprocessor, model_frame
 from .discovery import Discovery, Requests, discover
-from .equation import EquationFit, check_family, coefficient_budget, fit_equation, refit_for_scoring
+from .equation import EquationFit, check_family, coefficient_budget, fit_equation, refit_for_scoring, skewed_count
 from .evaluate import ESTIMAND_CV, ESTIMAND_TEST, fidelity, loss_with_interval, metrics, nested_cv_interval, outcome_values
 from .forest import ForestFit, fit_forest
 from .importance import Importance, oob_increases, summarise
@@ -269,6 +269,12 @@ def _fit_equation(discovery: Discovery, table: Table, conf: pd.DataFrame, y_c: n
     if s.family is None and family in ("poisson",) and task == "regression":
         equation.notes.append(f"{target!r} holds whole numbers from zero up with many zeros, so the equation is a "
                               "Poisson GLM with a log link by default (pass --family gaussian to override).")
+    elif s.family is None and family == "gaussian" and task == "regression":
+        g = skewed_count(np.concatenate([y_d, y_c]))
+        if g is not None:
+            equation.notes.append(f"{target!r} holds whole numbers from zero up, skewed to the right (skewness "
+                                  f"{g:.1f}) with few zeros, and the equation is Gaussian by default: a count model "
+                                  "may follow its long tail better; try --family poisson (or negative_binomial).")
     if s.refit:
         both = pd.concat([disc, conf], ignore_index=True)
         equation = refit_for_scoring(equation, both, np.concatenate([y_d, y_c]), fills=fills, kinds=kinds,
