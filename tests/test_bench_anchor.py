@@ -157,3 +157,45 @@ def test_bad_section_options_are_one_error_line(argv, capsys):
     assert cli.main(argv) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and err[0].startswith("error: ")
+
+
+# Sizes as each table's own documentation states them: R MASS help pages for birthwt ("189 rows
+# and 10 columns"), Pima.tr / Pima.te ("200 subjects", "the remaining 332") and biopsy ("699 rows
+# and 11 columns"); R COUNT help pages for rwm1984 ("3,874 observations") and medpar ("1495
+# observations"); the palmerpenguins docstring for penguins ("Samples total 344"; its per-class line
+# reads 152/168/124, which sums to 444: the file holds 152 Adelie, 68 Chinstrap and 124 Gentoo).
+@pytest.mark.parametrize("name,rows,columns,dropped", [
+    ("penguins", 344, 8, ()),
+    ("birthwt", 189, 9, ("low",)),                                   # low = bwt < 2500: the outcome again
+    ("pima", 532, 8, ()),
+    ("biopsy", 699, 10, ("ID",)),
+    ("rwm1984", 3874, 10, ("hospvis", "edlevel1", "edlevel4")),
+    ("medpar", 1495, 6, ("type1", "provnum")),
+])
+def test_public_tables_are_the_documented_ones_without_copies_of_the_outcome(name, rows, columns, dropped):
+    ds = anchor.DATASETS[name]
+    df = ds.build()
+    assert df.shape == (rows, columns) and ds.target in df.columns
+    assert not set(dropped) & set(df.columns)
+    assert all(c in df.columns for c in ds.categorical)
+    if name == "penguins":
+        assert df["species"].value_counts().sort_index().tolist() == [152, 68, 124]
+
+
+def test_gap_sd_is_given_for_test_split_rows_only(quick_rows):
+    for r in quick_rows:
+        if r["plan"] == "test":
+            assert 0 < r["gap_sd"] < 0.1
+        else:
+            assert "gap_sd" not in r
+
+
+def test_gap_sd_is_zero_when_the_models_agree_and_grows_with_their_disagreement():
+    # constructed: the "equation" and the hand fit predict alike (sd 0), then differ on every row
+    rng = np.random.default_rng(0)
+    y = rng.normal(size=400)
+    same = {"y": y, "equation": y * 0.5, "main": y * 0.5}
+    assert anchor._gap_sd(same, "main", "regression", None, "r2", 0) == 0.0
+    small = {"y": y, "equation": y * 0.5, "main": y * 0.5 + rng.normal(0, 0.1, 400)}
+    large = {"y": y, "equation": y * 0.5, "main": y * 0.5 + rng.normal(0, 1.0, 400)}
+    assert 0 < anchor._gap_sd(small, "main", "regression", None, "r2", 0) < anchor._gap_sd(large, "main", "regression", None, "r2", 0)
