@@ -51,6 +51,7 @@ def _cases(ctx: dict) -> dict[str, tuple[list[str], int]]:
         "mixed delimiters": (_distill(c / "mixed_delimiters.csv", "--out", out), 2),
         "semicolons in a .csv": (_distill(c / "semicolon_separated.csv", "--out", out), 2),
         "decimal commas without --decimal-comma": (_distill(ctx["comma_tsv"], "--out", out), 2),
+        "thousands separators in a number column": (_distill(c / "thousands_separators.csv", "--out", out), 2),
         "--decimal-comma on a Parquet file": (_distill(ctx["parquet"], "--out", out, "--decimal-comma"), 2),
         "ragged row": (_distill(c / "ragged_rows.csv", "--out", out), 2),
         "target is a row id": (_distill(c / "target_is_id.csv", "--out", out, target="id"), 2),

@@ -154,3 +154,44 @@ def test_decimal_points_rewrites_only_whole_numbers():
     got = decimal_points(s).tolist()
     assert got[:5] == ["6.8", "-0.25", ".5", "1.5E-3", "12"]
     assert got[5:9] == ["1.234,5", "3,5 mg", "a,b", "1,2,3"] and got[9] is None
+
+
+def test_commas_in_numbers_are_named_by_how_they_read():
+    """Which of the three readings :func:`comma_numbers` gives (constructed values)."""
+    from pocketforest.intake.values import comma_numbers, parse_numbers
+
+    def kind(values):
+        s = pd.Series(values, dtype=object)
+        return comma_numbers(s, parse_numbers(s)[1])
+    assert kind(["6,8", "12,25", "3"]) == "decimal"
+    assert kind(["23,453", "1,234,567", "-1,234.5", "12"]) == "thousands"
+    assert kind(["23,453", "9,876", "120"]) == "either"          # one comma before three digits
+    assert kind(["6,8", "23,453"]) == "decimal"                  # 6,8 cannot be a thousands group
+    assert kind(["6,8", "1,234,567"]) is None and kind(["a,b", "1,5"]) is None and kind(["1", "2"]) is None
+
+
+def test_thousands_separators_are_one_error_saying_to_drop_them(tmp_path):
+    # Spreadsheets write large amounts as "23,453" (quoted in a comma-separated file; common practice).
+    # Before this, the message named only --decimal-comma, which would read 23,453 as 23.453.
+    lines = csv_text(frame(45)).splitlines()
+
+    def with_income(cells: list[str], name: str):
+        rows = [lines[0] + ",income"] + [f'{r},"{c}"' for r, c in zip(lines[1:], cells)]
+        return write(tmp_path, name, "\n".join(rows) + "\n")
+    msg = raises(r"column 'income' holds numbers with a comma before three digits .*save them without it "
+                 r"\(23453, not 23,453\).*--decimal-comma.*--categorical income",
+                 load, with_income([f"{20 + i},{i:03d}" for i in range(45)], "amounts.csv"), "y")
+    assert "line 2" in msg
+    msg = raises(r"column 'income' holds numbers with commas between their thousands",
+                 load, with_income([f"1,{i:03d},500" for i in range(45)], "big.csv"), "y")
+    assert "--decimal-comma" not in msg
+
+
+def test_missing_written_another_way_gets_a_hint_naming_the_missing_texts(tmp_path):
+    base = frame(45).assign(x=[str(v) for v in range(45)])
+    base.loc[[3, 9], "x"] = "n/a"
+    msg = raises(r"column 'x' is numeric but has 2 text values .*if they mean missing, leave those cells empty "
+                 r"or write NA \(the texts read as missing: N/A, NA", load, write(tmp_path, "m.csv", csv_text(base)), "y")
+    base.loc[[3, 9], "x"] = "seven"
+    msg = raises(r"column 'x' is numeric but has 2 text values", load, write(tmp_path, "t.csv", csv_text(base)), "y")
+    assert "mean missing" not in msg

@@ -10,8 +10,8 @@ import pandas as pd
 
 from ..errors import InputError
 from ..features import Feature
-from .messages import SEMICOLON_HINT, check_finite, decimal_comma_message, examples, plural, quote_list
-from .values import category_series, decimal_comma_only, parse_numbers, plain
+from .messages import SEMICOLON_HINT, check_finite, comma_message, examples, missing_hint, plural, quote_list
+from .values import category_series, comma_numbers, parse_numbers, plain
 
 
 def coerce_for_scoring(
@@ -41,13 +41,14 @@ def coerce_for_scoring(
         s = plain(s)
         if f.kind == "numeric":
             values, bad = parse_numbers(s)
-            if decimal_comma_only(s, bad):
-                raise InputError(decimal_comma_message(source, f"column '{f.name}'", examples(s, bad, lines),
-                                                       "or write them with a decimal point"))
+            commas = comma_numbers(s, bad)
+            if commas:
+                raise InputError(comma_message(commas, source, f"column '{f.name}'", examples(s, bad, lines),
+                                               "or write them with a decimal point" if commas == "decimal" else ""))
             if bad.any():
                 raise InputError(
                     f"{source}: column '{f.name}' must be numeric but has {plural(int(bad.sum()), 'text value')} "
-                    f"({examples(s, bad, lines)}): fix them or leave the cells empty"
+                    f"({examples(s, bad, lines)}): fix them or leave the cells empty{missing_hint(s, bad)}"
                 )
             check_finite(values, f.name, lines, source)
             out[f.name] = pd.Series(values, index=df.index, dtype="float64")

@@ -8,6 +8,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import InputError
+from .values import MISSING_TOKENS
 
 #: How many offending values a message quotes.
 EXAMPLES = 3
@@ -53,6 +54,22 @@ def examples(s: pd.Series, mask: np.ndarray, lines: np.ndarray) -> str:
     return ", ".join(parts) + more
 
 
+#: Spellings of "missing" that spreadsheets and other packages write but that are not missing here
+#: (values.MISSING_TOKENS is the list every export shares): lower case after stripping.
+MISSING_LOOKALIKES = frozenset({"n/a", "na", "n.a.", "#n/a", "nan", "null", "none", "missing", "-", "--", "?", ".",
+                                "not available", "unknown"})
+
+
+def missing_hint(s: pd.Series, mask: np.ndarray) -> str:
+    """A hint for text values that all look like a way of writing "missing": read as text they
+    stop a numeric column, and the user's fix is to blank them, not to make the column a category."""
+    texts = {str(v).strip().lower() for v in s[mask]}
+    if texts and texts <= MISSING_LOOKALIKES:
+        return ("; if they mean missing, leave those cells empty or write NA (the texts read as missing: "
+                + ", ".join(sorted(t for t in MISSING_TOKENS if t)) + ")")
+    return ""
+
+
 #: The largest magnitude a model input can carry: every ONNX graph takes numbers as float32.
 FLOAT32_MAX = float(np.finfo(np.float32).max)
 
@@ -77,11 +94,20 @@ def check_finite(values: np.ndarray, col: str, lines: np.ndarray, source: str) -
         )
 
 
-def decimal_comma_message(source: str, what: str, shown: str, other: str) -> str:
-    """The error for numbers written with a decimal comma in a file read without --decimal-comma:
-    read as text they would silently become categories (or classes)."""
-    return (f"{source}: {what} holds numbers written with a decimal comma ({shown}): pass --decimal-comma "
-            f"to read them as numbers (a .csv is then read as semicolon-separated), {other}")
+def comma_message(kind: str, source: str, what: str, shown: str, other: str = "") -> str:
+    """The error for numbers written with commas (``values.comma_numbers``) in a file read
+    without --decimal-comma: read as text they would silently become categories (or classes).
+    ``other``: the way to keep them as text, added at the end."""
+    option = "pass --decimal-comma to read them as numbers (a .csv is then read as semicolon-separated)"
+    tail = f", {other}" if other else ""
+    if kind == "decimal":
+        return f"{source}: {what} holds numbers written with a decimal comma ({shown}): {option}{tail}"
+    if kind == "thousands":
+        return (f"{source}: {what} holds numbers with commas between their thousands ({shown}): save them "
+                f"without the separators (1234567, not 1,234,567){tail}")
+    return (f"{source}: {what} holds numbers with a comma before three digits ({shown}): if the comma "
+            f"separates thousands, save them without it (23453, not 23,453); if it is the decimal mark, "
+            f"{option}" + (f"; {other}" if other else ""))
 
 
 #: the hint added where a semicolon-separated file may have been read as comma-separated

@@ -15,9 +15,9 @@ import pandas as pd
 
 from ..errors import InputError
 from ..features import Feature, Table
-from .messages import check_finite, decimal_comma_message, examples, plural, quote_list, suggest
+from .messages import check_finite, comma_message, examples, missing_hint, plural, quote_list, suggest
 from .reading import read_table
-from .values import category_series, decimal_comma_only, is_boolean, parse_numbers, plain, sort_labels
+from .values import category_series, comma_numbers, is_boolean, parse_numbers, plain, sort_labels
 
 #: More levels than this cannot be one-hot encoded sensibly by the exports.
 MAX_CATEGORIES = 200
@@ -206,15 +206,16 @@ def _target(
     """Decide the task and return the typed target (float64 or str labels) and classes."""
     is_bool = is_boolean(y)
     values, bad = (np.full(len(y), np.nan), np.ones(len(y), bool)) if is_bool else parse_numbers(y)
-    if not is_bool and task != "classification" and decimal_comma_only(y, bad):
-        raise InputError(decimal_comma_message(source, f"target '{target}'", examples(y, bad, lines),
-                                               "or --task classification to take them as classes"))
+    commas = None if is_bool or task == "classification" else comma_numbers(y, bad)
+    if commas:
+        raise InputError(comma_message(commas, source, f"target '{target}'", examples(y, bad, lines),
+                                       "or --task classification to take them as classes"))
     numeric = not is_bool and not bad.any()
     share_numeric = 1.0 - bad.mean()
     if not numeric and not is_bool and share_numeric >= _MOSTLY_NUMERIC and task != "classification":
         raise InputError(
             f"{source}: target '{target}' is numeric but has {plural(int(bad.sum()), 'text value')} "
-            f"({examples(y, bad, lines)}): fix them or pass --task classification"
+            f"({examples(y, bad, lines)}): fix them or pass --task classification{missing_hint(y, bad)}"
         )
     if numeric:
         check_finite(values, target, lines, source)
@@ -280,15 +281,17 @@ def _type_column(
     if not force_cat and not is_boolean(s):
         values_full, bad_full = parse_numbers(full)  # parse once: this is the slow step on big files
         values, bad = values_full[keep], bad_full[keep]
-        if decimal_comma_only(s, bad):
-            raise InputError(decimal_comma_message(source, f"column '{col}'", examples(s, bad, lines),
-                                                   f"or --categorical {shlex.quote(col)} to keep them as categories"))
+        commas = comma_numbers(s, bad)
+        if commas:
+            raise InputError(comma_message(commas, source, f"column '{col}'", examples(s, bad, lines),
+                                           f"or --categorical {shlex.quote(col)} to keep them as categories"))
         if not bad.any():
             kind = "numeric"
         elif 1.0 - bad.sum() / present.sum() >= _MOSTLY_NUMERIC:
             raise InputError(
                 f"{source}: column '{col}' is numeric but has {plural(int(bad.sum()), 'text value')} "
                 f"({examples(s, bad, lines)}): fix them or pass --categorical {shlex.quote(col)}"
+                f"{missing_hint(s, bad)}"
             )
 
     if kind == "numeric":

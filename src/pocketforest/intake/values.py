@@ -23,6 +23,8 @@ _NUMBER_RE = re.compile(r"^[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?$")
 #: a number written with a decimal comma, as spreadsheets save it where the comma is the decimal
 #: mark: 6,8  -0,25  ,5  1,5E-3 (no thousands separators: "1.234,5" stays text)
 DECIMAL_COMMA = r"[+-]?(?:\d+,\d*|,\d+)(?:[eE][+-]?\d+)?"
+#: a number with commas grouping its thousands: 23,453  1,234,567  -1,234.5
+THOUSANDS = r"[+-]?\d{1,3}(?:,\d{3})+(?:\.\d+)?"
 _LEADING_ZERO_RE = re.compile(r"^[+-]?0\d")
 
 
@@ -61,13 +63,25 @@ def decimal_points(s: pd.Series) -> pd.Series:
     return out
 
 
-def decimal_comma_only(s: pd.Series, bad: np.ndarray) -> bool:
-    """True when every value of ``s`` that is not a number (``bad``, from :func:`parse_numbers`)
-    is one written with a decimal comma: a numeric column saved in a decimal-comma locale."""
+def comma_numbers(s: pd.Series, bad: np.ndarray) -> str | None:
+    """How the commas read when every value of ``s`` that is not a number (``bad``, from
+    :func:`parse_numbers`) is a number written with a comma; None otherwise.
+
+    ``"decimal"``: a decimal comma (6,8), the way a decimal-comma locale saves numbers;
+    ``"thousands"``: commas grouping thousands (1,234,567 or 1,234.5);
+    ``"either"``: one comma before exactly three digits (23,453), which both readings fit.
+    Read as text, any of them would silently become a category (or a class).
+    """
     if not bad.any():
-        return False
-    distinct = pd.Series(pd.unique(s[bad].to_numpy(dtype=object)), dtype=object)   # few, for categories
-    return bool(distinct.astype(str).str.fullmatch(DECIMAL_COMMA).all())
+        return None
+    distinct = pd.Series(pd.unique(s[bad].to_numpy(dtype=object)), dtype=object).astype(str)   # few, for categories
+    decimal = distinct.str.fullmatch(DECIMAL_COMMA)
+    grouped = distinct.str.fullmatch(THOUSANDS)
+    if not (decimal | grouped).all():
+        return None
+    if decimal.all():
+        return "either" if grouped.all() else "decimal"
+    return "thousands" if grouped.all() else None
 
 
 def category_text(value: Any) -> str:
