@@ -60,6 +60,13 @@ def test_coerce_names_the_decimal_comma_option():
     raw = pd.DataFrame({"x": ["0,5", "1"], "size cm": ["2", "3"], "color": ["red", "blue"]})
     raises(r"column 'x' holds numbers written with a decimal comma \('0,5' at line 2\).*--decimal-comma",
            coerce_for_scoring, raw, _features(), source="new.csv")
+    # thousands separators and percentages in new rows: saved plain, not read as something else
+    raises(r"column 'x' holds numbers with commas between their thousands \('1,234,500' at line 2\)",
+           coerce_for_scoring, raw.assign(x=["1,234,500", "7"]), _features(), source="new.csv")
+    raises(r"column 'x' holds percentages \('12%' at line 2\): save them as plain numbers",
+           coerce_for_scoring, raw.assign(x=["12%", "7"]), _features(), source="new.csv")
+    raises(r"column 'x' must be numeric but has 1 text value .*if they mean missing",
+           coerce_for_scoring, raw.assign(x=["-", "7"]), _features(), source="new.csv")
     glued = pd.DataFrame({"x;size cm;color": ["0,5;2;red"]})
     raises(r"missing column\(s\).*the header holds semicolons.*--decimal-comma",
            coerce_for_scoring, glued, _features(), source="new.csv")

@@ -135,7 +135,7 @@ def test_decimal_comma_file_reads_like_the_decimal_point_file(tmp_path):
     pd.testing.assert_frame_equal(pd.concat(chunks, ignore_index=True), read_table(semi, decimal_comma=True))
 
 
-def test_decimal_comma_numbers_read_without_the_option_are_an_error(tmp_path):
+def test_decimal_numbers_as_text_read_without_the_option_are_an_error(tmp_path):
     """Read as text, 6,8 would silently make a numeric column a category: one error naming the option."""
     base = frame(45).assign(x=[0.5, 1.5, 2.5] * 15)   # y stays text with points
     tsv = tmp_path / "semi.tsv"
@@ -157,12 +157,12 @@ def test_decimal_points_rewrites_only_whole_numbers():
 
 
 def test_commas_in_numbers_are_named_by_how_they_read():
-    """Which of the three readings :func:`comma_numbers` gives (constructed values)."""
-    from pocketforest.intake.values import comma_numbers, parse_numbers
+    """Which of the three readings :func:`numbers_as_text` gives (constructed values)."""
+    from pocketforest.intake.values import numbers_as_text, parse_numbers
 
     def kind(values):
         s = pd.Series(values, dtype=object)
-        return comma_numbers(s, parse_numbers(s)[1])
+        return numbers_as_text(s, parse_numbers(s)[1])
     assert kind(["6,8", "12,25", "3"]) == "decimal"
     assert kind(["23,453", "1,234,567", "-1,234.5", "12"]) == "thousands"
     assert kind(["23,453", "9,876", "120"]) == "either"          # one comma before three digits
@@ -195,3 +195,27 @@ def test_missing_written_another_way_gets_a_hint_naming_the_missing_texts(tmp_pa
     base.loc[[3, 9], "x"] = "seven"
     msg = raises(r"column 'x' is numeric but has 2 text values", load, write(tmp_path, "t.csv", csv_text(base)), "y")
     assert "mean missing" not in msg
+
+
+def test_percentages_are_one_error_saying_to_save_plain_numbers(tmp_path):
+    base = frame(45).assign(share=[f"{i % 9 * 5}%" for i in range(45)])
+    msg = raises(r"column 'share' holds percentages \('0%' at line 2.*save them as plain numbers \(12 or 0\.12, "
+                 r"not 12%\), or --categorical share", load, write(tmp_path, "p.csv", csv_text(base)), "y")
+    assert "--decimal-comma" not in msg
+    kept = load(write(tmp_path, "p.csv", csv_text(base)), "y", categorical=["share"])
+    assert next(f for f in kept.features if f.name == "share").kind == "categorical"
+
+
+@pytest.mark.parametrize("dates", [
+    [f"2024-{1 + i % 9:02d}-{13 + i % 9:02d}" for i in range(45)],          # ISO 8601
+    [f"{13 + i % 9:02d}/{1 + i % 9:02d}/2024" for i in range(45)],          # day first, as many spreadsheets save
+])
+def test_a_date_column_is_kept_as_categories_with_a_note_saying_so(tmp_path, dates):
+    table = load(write(tmp_path, "d.csv", csv_text(frame(45).assign(joined=dates))), "y")
+    assert next(f for f in table.features if f.name == "joined").kind == "categorical"
+    assert any("column 'joined' holds dates" in n and "days since a start date" in n for n in table.notes)
+    # asked to be categories: no note; ordinary words: no note
+    asked = load(write(tmp_path, "d.csv", csv_text(frame(45).assign(joined=dates))), "y", categorical=["joined"])
+    assert not any("holds dates" in n for n in asked.notes)
+    plain = load(write(tmp_path, "w.csv", csv_text(frame(45))), "y")
+    assert not any("holds dates" in n for n in plain.notes)

@@ -10,8 +10,8 @@ import pandas as pd
 
 from ..errors import InputError
 from ..features import Feature
-from .messages import SEMICOLON_HINT, check_finite, comma_message, examples, missing_hint, plural, quote_list
-from .values import category_series, comma_numbers, parse_numbers, plain
+from .messages import SEMICOLON_HINT, check_finite, numbers_as_text_message, examples, missing_hint, plural, quote_list
+from .values import category_series, numbers_as_text, parse_numbers, plain
 
 
 def coerce_for_scoring(
@@ -41,10 +41,11 @@ def coerce_for_scoring(
         s = plain(s)
         if f.kind == "numeric":
             values, bad = parse_numbers(s)
-            commas = comma_numbers(s, bad)
-            if commas:
-                raise InputError(comma_message(commas, source, f"column '{f.name}'", examples(s, bad, lines),
-                                               "or write them with a decimal point" if commas == "decimal" else ""))
+            spelled = numbers_as_text(s, bad)
+            if spelled:
+                raise InputError(numbers_as_text_message(
+                    spelled, source, f"column '{f.name}'", examples(s, bad, lines),
+                    "or write them with a decimal point" if spelled == "decimal" else ""))
             if bad.any():
                 raise InputError(
                     f"{source}: column '{f.name}' must be numeric but has {plural(int(bad.sum()), 'text value')} "

@@ -94,12 +94,15 @@ def check_finite(values: np.ndarray, col: str, lines: np.ndarray, source: str) -
         )
 
 
-def comma_message(kind: str, source: str, what: str, shown: str, other: str = "") -> str:
-    """The error for numbers written with commas (``values.comma_numbers``) in a file read
-    without --decimal-comma: read as text they would silently become categories (or classes).
+def numbers_as_text_message(kind: str, source: str, what: str, shown: str, other: str = "") -> str:
+    """The error for numbers written another way (``values.numbers_as_text``): read as text they
+    would silently become categories (or classes).
     ``other``: the way to keep them as text, added at the end."""
     option = "pass --decimal-comma to read them as numbers (a .csv is then read as semicolon-separated)"
     tail = f", {other}" if other else ""
+    if kind == "percent":
+        return (f"{source}: {what} holds percentages ({shown}): save them as plain numbers (12 or 0.12, "
+                f"not 12%){tail}")
     if kind == "decimal":
         return f"{source}: {what} holds numbers written with a decimal comma ({shown}): {option}{tail}"
     if kind == "thousands":

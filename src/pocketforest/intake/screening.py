@@ -15,9 +15,9 @@ import pandas as pd
 
 from ..errors import InputError
 from ..features import Feature, Table
-from .messages import check_finite, comma_message, examples, missing_hint, plural, quote_list, suggest
+from .messages import check_finite, numbers_as_text_message, examples, missing_hint, plural, quote_list, suggest
 from .reading import read_table
-from .values import category_series, comma_numbers, is_boolean, parse_numbers, plain, sort_labels
+from .values import category_series, date_format, is_boolean, numbers_as_text, parse_numbers, plain, sort_labels
 
 #: More levels than this cannot be one-hot encoded sensibly by the exports.
 MAX_CATEGORIES = 200
@@ -142,6 +142,10 @@ def prepare(
             dropped[col] = reason
             notes.append(f"dropped column '{col}': {_REASON_TEXT[reason]}")
             continue
+        if kind == "categorical" and col not in categorical and date_format(typed) is not None:
+            notes.append(f"column '{col}' holds dates ({typed.nunique()} distinct), used as categories with no "
+                         "order: to use time as a number, save it as days since a start date, or pass --ignore "
+                         f"{shlex.quote(col)}")
         kept.append((col, kind, typed))
 
     if not kept:
@@ -206,10 +210,10 @@ def _target(
     """Decide the task and return the typed target (float64 or str labels) and classes."""
     is_bool = is_boolean(y)
     values, bad = (np.full(len(y), np.nan), np.ones(len(y), bool)) if is_bool else parse_numbers(y)
-    commas = None if is_bool or task == "classification" else comma_numbers(y, bad)
-    if commas:
-        raise InputError(comma_message(commas, source, f"target '{target}'", examples(y, bad, lines),
-                                       "or --task classification to take them as classes"))
+    spelled = None if is_bool or task == "classification" else numbers_as_text(y, bad)
+    if spelled:
+        raise InputError(numbers_as_text_message(spelled, source, f"target '{target}'", examples(y, bad, lines),
+                                                 "or --task classification to take them as classes"))
     numeric = not is_bool and not bad.any()
     share_numeric = 1.0 - bad.mean()
     if not numeric and not is_bool and share_numeric >= _MOSTLY_NUMERIC and task != "classification":
@@ -281,10 +285,10 @@ def _type_column(
     if not force_cat and not is_boolean(s):
         values_full, bad_full = parse_numbers(full)  # parse once: this is the slow step on big files
         values, bad = values_full[keep], bad_full[keep]
-        commas = comma_numbers(s, bad)
-        if commas:
-            raise InputError(comma_message(commas, source, f"column '{col}'", examples(s, bad, lines),
-                                           f"or --categorical {shlex.quote(col)} to keep them as categories"))
+        spelled = numbers_as_text(s, bad)
+        if spelled:
+            raise InputError(numbers_as_text_message(spelled, source, f"column '{col}'", examples(s, bad, lines),
+                                                     f"or --categorical {shlex.quote(col)} to keep them as categories"))
         if not bad.any():
             kind = "numeric"
         elif 1.0 - bad.sum() / present.sum() >= _MOSTLY_NUMERIC:

@@ -25,6 +25,10 @@ _NUMBER_RE = re.compile(r"^[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?$")
 DECIMAL_COMMA = r"[+-]?(?:\d+,\d*|,\d+)(?:[eE][+-]?\d+)?"
 #: a number with commas grouping its thousands: 23,453  1,234,567  -1,234.5
 THOUSANDS = r"[+-]?\d{1,3}(?:,\d{3})+(?:\.\d+)?"
+#: a percentage: 12%  -3.5%  12 %
+PERCENT = r"[+-]?(?:\d+\.?\d*|\.\d+)\s?%"
+#: how spreadsheets write dates: ISO 8601 first, then day or month first with slashes or dots
+DATE_FORMATS = ("ISO8601", "%d/%m/%Y", "%m/%d/%Y", "%d.%m.%Y")
 _LEADING_ZERO_RE = re.compile(r"^[+-]?0\d")
 
 
@@ -63,18 +67,21 @@ def decimal_points(s: pd.Series) -> pd.Series:
     return out
 
 
-def comma_numbers(s: pd.Series, bad: np.ndarray) -> str | None:
-    """How the commas read when every value of ``s`` that is not a number (``bad``, from
-    :func:`parse_numbers`) is a number written with a comma; None otherwise.
+def numbers_as_text(s: pd.Series, bad: np.ndarray) -> str | None:
+    """How the numbers are written when every value of ``s`` that is not a number (``bad``, from
+    :func:`parse_numbers`) is a number in another spelling; None otherwise.
 
     ``"decimal"``: a decimal comma (6,8), the way a decimal-comma locale saves numbers;
     ``"thousands"``: commas grouping thousands (1,234,567 or 1,234.5);
-    ``"either"``: one comma before exactly three digits (23,453), which both readings fit.
+    ``"either"``: one comma before exactly three digits (23,453), which both readings fit;
+    ``"percent"``: percentages (12%).
     Read as text, any of them would silently become a category (or a class).
     """
     if not bad.any():
         return None
     distinct = pd.Series(pd.unique(s[bad].to_numpy(dtype=object)), dtype=object).astype(str)   # few, for categories
+    if distinct.str.fullmatch(PERCENT).all():
+        return "percent"
     decimal = distinct.str.fullmatch(DECIMAL_COMMA)
     grouped = distinct.str.fullmatch(THOUSANDS)
     if not (decimal | grouped).all():
@@ -82,6 +89,19 @@ def comma_numbers(s: pd.Series, bad: np.ndarray) -> str | None:
     if decimal.all():
         return "either" if grouped.all() else "decimal"
     return "thousands" if grouped.all() else None
+
+
+def date_format(s: pd.Series) -> str | None:
+    """The format (:data:`DATE_FORMATS`) every present value of a text column parses with, or None:
+    a date read as a category has no order and no distance between its values."""
+    distinct = pd.unique(s.dropna().astype(str).to_numpy(dtype=object))
+    if len(distinct) < 2 or not all(("-" in v or "/" in v or "." in v) for v in distinct):
+        return None
+    for fmt in DATE_FORMATS:
+        parsed = pd.to_datetime(pd.Series(distinct, dtype=object), format=fmt, errors="coerce")
+        if parsed.notna().all():
+            return fmt
+    return None
 
 
 def category_text(value: Any) -> str:
