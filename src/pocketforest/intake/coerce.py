@@ -10,7 +10,7 @@ import pandas as pd
 
 from ..errors import InputError
 from ..features import Feature
-from .messages import SEMICOLON_HINT, check_finite, numbers_as_text_message, examples, missing_hint, plural, quote_list
+from .messages import SEMICOLON_HINT, check_finite, examples, missing_hint, numbers_as_text_message, plural, quote_list
 from .values import category_series, numbers_as_text, parse_numbers, plain
 
 

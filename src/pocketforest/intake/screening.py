@@ -15,7 +15,7 @@ import pandas as pd
 
 from ..errors import InputError
 from ..features import Feature, Table
-from .messages import check_finite, numbers_as_text_message, examples, missing_hint, plural, quote_list, suggest
+from .messages import check_finite, examples, missing_hint, numbers_as_text_message, plural, quote_list, suggest
 from .reading import read_table
 from .values import category_series, date_format, is_boolean, numbers_as_text, parse_numbers, plain, sort_labels
 
