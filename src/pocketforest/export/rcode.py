@@ -13,6 +13,7 @@ comment; inputs are bound to generated names (``x0``, ``c1``, ...).
 """
 from __future__ import annotations
 
+from ..intake.values import MISSING_TOKENS
 from ..thresholds import double_split
 from .breakdown import blocks
 from .dialect import Dialect, Inputs, plain_number, print_expr
@@ -60,7 +61,8 @@ R = Dialect(number=plain_number, text=r_str,
             is_level=lambda var, lit: f"as.numeric({var} == {lit})",
             square=lambda a: f"{a}^2", pos=lambda a: f"pmax({a}, 0)", log=lambda a: f"log({a})")
 
-_HELPERS = r'''  .MISSING_TEXT <- c("", "NA", "N/A", "NaN", "nan", "null", "NULL", "None")
+# the missing-value texts come from intake's one list (values.MISSING_TOKENS), like every export's
+_HELPERS = "  .MISSING_TEXT <- " + r_strings(sorted(MISSING_TOKENS)) + r'''
 
   .column <- function(data, name) {
     if (!is.data.frame(data)) stop("pass a data.frame", call. = FALSE)

@@ -16,10 +16,11 @@ from __future__ import annotations
 
 import re
 
+from ..intake.values import MISSING_TOKENS
 from .breakdown import blocks
 from .dialect import Dialect, Inputs, plain_number, print_expr
 
-_MISSING_TEXT = ("", "NA", "N/A", "NaN", "nan", "null", "NULL", "None")
+_MISSING_TEXT = tuple(sorted(MISSING_TOKENS))     # intake's one list, as in every export
 _RESERVED = {"ALL", "AND", "BY", "EQ", "GE", "GT", "LE", "LT", "NE", "NOT", "OR", "TO", "WITH"}
 _VALID = re.compile(r"^[A-Za-z@][A-Za-z0-9_.@#$]*$")
 MAX_NAME_BYTES = 64
