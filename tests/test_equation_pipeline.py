@@ -94,6 +94,7 @@ def test_skewed_counts_without_zeros_stay_gaussian_with_a_note_naming_the_count_
     result = distill(prepare(df, "stay", task="regression"), settings)
     assert result.equation.family == "gaussian"
     assert any("try --family poisson" in n for n in result.equation.notes)
+    assert any("try --family poisson" in w for w in result.warnings)       # counted in the summary's notes line
     asked = distill(prepare(df, "stay", task="regression"), dataclasses.replace(settings, family="gaussian"))
     assert not any("try --family poisson" in n for n in asked.equation.notes)
     df["score"] = np.round(100 + 15 * rng.normal(size=len(df)) + 5 * df.dose)

@@ -271,10 +271,12 @@ def _fit_equation(discovery: Discovery, table: Table, conf: pd.DataFrame, y_c: n
                               "Poisson GLM with a log link by default (pass --family gaussian to override).")
     elif s.family is None and family == "gaussian" and task == "regression":
         g = skewed_count(np.concatenate([y_d, y_c]))
-        if g is not None:
-            equation.notes.append(f"{target!r} holds whole numbers from zero up, skewed to the right (skewness "
-                                  f"{g:.1f}) with few zeros, and the equation is Gaussian by default: a count model "
-                                  "may follow its long tail better; try --family poisson (or negative_binomial).")
+        if g is not None:   # advice to act on: among the run's warnings too, like the overdispersion one
+            msg = (f"{target!r} holds whole numbers from zero up, skewed to the right (skewness {g:.1f}) with few "
+                   "zeros, and the equation is Gaussian by default: a count model may follow its long tail better; "
+                   "try --family poisson (or negative_binomial).")
+            equation.notes.append(msg)
+            equation.warnings.append(msg)
     if s.refit:
         both = pd.concat([disc, conf], ignore_index=True)
         equation = refit_for_scoring(equation, both, np.concatenate([y_d, y_c]), fills=fills, kinds=kinds,
