@@ -156,17 +156,23 @@ def check_family(family: str | None, task: str, classes: list[str] | None, y: np
                          "pass --task classification")
     if family in ("poisson", "negative_binomial"):
         v = np.asarray(y, dtype=float)
-        bad = ~np.isfinite(v) | (v < 0) | (v != np.round(v))
+        bad = _not_counts(v)
         if bad.any():
             raise InputError(f"--family {family} needs counts, but {target!r} has the value "
                              f"{float(v[np.argmax(bad)])!r}: give a non-negative whole-number outcome or drop --family {family}")
     return family
 
 
+def _not_counts(v: np.ndarray) -> np.ndarray:
+    """Which values cannot be counts: not finite, negative or not whole."""
+    with np.errstate(invalid="ignore"):
+        return ~np.isfinite(v) | (v < 0) | (v != np.round(v))
+
+
 def is_count(y: np.ndarray) -> bool:
     """A non-negative whole-number outcome with many zeros (see :data:`COUNT_ZERO_SHARE`)."""
     v = np.asarray(y, dtype=float)
-    if len(v) == 0 or not np.all(np.isfinite(v)) or (v < 0).any() or (v != np.round(v)).any():
+    if len(v) == 0 or _not_counts(v).any():
         return False
     return bool(np.mean(v == 0) >= COUNT_ZERO_SHARE and len(np.unique(v)) >= 3)
 
@@ -177,8 +183,7 @@ def skewed_count(y: np.ndarray) -> float | None:
     visit counts that start at 1 are counts all the same, and a Gaussian equation misses their
     long tail."""
     v = np.asarray(y, dtype=float)
-    if (len(v) < 3 or not np.all(np.isfinite(v)) or (v < 0).any() or (v != np.round(v)).any()
-            or is_count(v) or len(np.unique(v)) < 3):
+    if len(v) < 3 or _not_counts(v).any() or is_count(v) or len(np.unique(v)) < 3:
         return None
     g = float(stats.skew(v))
     return g if g >= SKEWED_COUNT else None

@@ -117,21 +117,13 @@ def _scores(sums: dict[str, np.ndarray], n: int, task: str, who: str) -> dict[st
 HIGHER_IS_BETTER = {"r2": True, "accuracy": True, "rmse": False, "mae": False, "log_loss": False, "brier": False}
 
 
-def loss_with_interval(y: np.ndarray, forest_pred: np.ndarray, other_pred: np.ndarray, task: str,
-                       classes: list[str] | None, *, resamples: int = 1000, seed: int = 0,
-                       level: float = 0.95, block: int = 100, reference_values: bool = True,
-                       groups: np.ndarray | None = None) -> dict:
-    """Forest metric minus surrogate metric, with a paired percentile bootstrap interval.
-
-    The headline is R² (regression) or accuracy (classification); ``also`` holds the same for the
-    other additive metrics, signed so that positive always means the surrogate is worse
-    (surrogate minus forest for RMSE, MAE, log loss and Brier). AUC has no interval here: it is
-    not a sum over rows. ``reference_values=False`` takes the point values from the same sums as
-    the bootstrap (equal to scikit-learn's to rounding) and skips its input checks, for
-    simulations that call this thousands of times. ``groups`` (a row's original position when
-    the rows are out-of-fold predictions stacked over cross-validation repeats) makes the
-    bootstrap draw original rows, each with all its repeats, so repeats do not pass for new rows.
-    """
+def paired_bootstrap(y: np.ndarray, forest_pred: np.ndarray, other_pred: np.ndarray, task: str,
+                     classes: list[str] | None, *, resamples: int, seed: int, block: int = 100,
+                     groups: np.ndarray | None = None) -> tuple[dict, dict, dict[str, np.ndarray]]:
+    """Both models' metrics on all rows (from per-row sums) and, per metric, the ``resamples``
+    bootstrap values of the forest-minus-other difference (signed as :func:`loss_with_interval`
+    reports it). Rows are drawn with replacement, the same rows for both models; ``groups`` as
+    there. The one resampling loop behind the loss intervals and the anchor's gap spread."""
     n = len(y)
     parts = {"f" + k: v for k, v in _row_terms(y, forest_pred, task, classes).items()}
     parts.update({"o" + k: v for k, v in _row_terms(y, other_pred, task, classes).items()})
@@ -159,10 +151,30 @@ def loss_with_interval(y: np.ndarray, forest_pred: np.ndarray, other_pred: np.nd
             W = W[:, groups]
         fs, os_ = metrics_of(W)
         # a resample whose outcomes are all equal has no r2 (inf - inf): NaN, which the
-        # percentiles below skip, without a RuntimeWarning on the user's terminal
+        # percentiles (and spreads) of the callers skip, without a RuntimeWarning on the user's terminal
         with np.errstate(invalid="ignore"):
             for m in f0:
                 diffs[m].append(_signed(m, fs[m], os_[m]))
+    return f0, o0, {m: np.concatenate(v) for m, v in diffs.items()}
+
+
+def loss_with_interval(y: np.ndarray, forest_pred: np.ndarray, other_pred: np.ndarray, task: str,
+                       classes: list[str] | None, *, resamples: int = 1000, seed: int = 0,
+                       level: float = 0.95, block: int = 100, reference_values: bool = True,
+                       groups: np.ndarray | None = None) -> dict:
+    """Forest metric minus surrogate metric, with a paired percentile bootstrap interval.
+
+    The headline is R² (regression) or accuracy (classification); ``also`` holds the same for the
+    other additive metrics, signed so that positive always means the surrogate is worse
+    (surrogate minus forest for RMSE, MAE, log loss and Brier). AUC has no interval here: it is
+    not a sum over rows. ``reference_values=False`` takes the point values from the same sums as
+    the bootstrap (equal to scikit-learn's to rounding) and skips its input checks, for
+    simulations that call this thousands of times. ``groups`` (a row's original position when
+    the rows are out-of-fold predictions stacked over cross-validation repeats) makes the
+    bootstrap draw original rows, each with all its repeats, so repeats do not pass for new rows.
+    """
+    f0, o0, diffs = paired_bootstrap(y, forest_pred, other_pred, task, classes, resamples=resamples, seed=seed,
+                                     block=block, groups=groups)
     alpha = (1.0 - level) / 2.0
     # point estimates from the reference library; the bootstrap sums reproduce them to rounding
     if reference_values:
@@ -171,7 +183,7 @@ def loss_with_interval(y: np.ndarray, forest_pred: np.ndarray, other_pred: np.nd
         ref_f, ref_o = ({m: float(v[0]) for m, v in d.items()} for d in (f0, o0))
     out_all = {}
     for m in f0:
-        d = np.concatenate(diffs[m])
+        d = diffs[m]
         lo, hi = np.nanquantile(d, [alpha, 1.0 - alpha])
         out_all[m] = {"value": float(_signed(m, ref_f[m], ref_o[m])), "ci_low": float(lo), "ci_high": float(hi)}
     name = loss_metric(task)

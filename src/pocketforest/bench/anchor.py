@@ -534,18 +534,16 @@ def anchor_one(ds: Dataset, seed: int, trees: int) -> dict:
 def _gap_sd(kept: dict, best: str, task: str, classes, metric: str, seed: int) -> float | None:
     """How far one seed's gap moves when its test rows are drawn again: the standard deviation of
     equation − best hand fit over ``GAP_RESAMPLES`` paired bootstrap resamples of the test rows
-    (the same rows for both models; Efron & Tibshirani 1993, ch. 6). A SHORT within about one of
-    these is inside what another draw of the test rows would give."""
+    (the same rows for both models, :func:`pocketforest.evaluate.paired_bootstrap`; Efron &
+    Tibshirani 1993, ch. 6). A SHORT within about one of these is inside what another draw of the
+    test rows would give."""
     if "equation" not in kept or best not in kept:
         return None
-    y, n = kept["y"], len(kept["y"])
-    rng = np.random.default_rng(seed)
-    gaps = []
-    for _ in range(GAP_RESAMPLES):
-        i = rng.integers(0, n, n)
-        gaps.append(_score(y[i], kept["equation"][i], task, classes)[metric]
-                    - _score(y[i], kept[best][i], task, classes)[metric])
-    return float(np.std(gaps, ddof=1))
+    from ..evaluate import paired_bootstrap
+    # the hand fit in the "forest" place: the draws are best − equation, whose spread is the gap's
+    _, _, draws = paired_bootstrap(kept["y"], kept[best], kept["equation"], task, classes,
+                                   resamples=GAP_RESAMPLES, seed=seed)
+    return float(np.nanstd(draws[metric], ddof=1))
 
 
 def _score_fold(result, data, fold, target, task, classes, kinds, family, eq, models=("pipeline", "hand"),
