@@ -152,7 +152,8 @@ def test_cross_validation_with_folds_refits_the_hand_glms_on_each_fold(monkeypat
 
 
 @pytest.mark.parametrize("argv", [["--only", "nope"], ["--only", "anchor", "--anchor-datasets", "iris,nope"],
-                                  ["--only", "anchor", "--anchor-seeds", "one"]])
+                                  ["--only", "anchor", "--anchor-seeds", "one"],
+                                  ["--only", "anchor", "--anchor-trees", "many"], ["--no-such-option"]])
 def test_bad_section_options_are_one_error_line(argv, capsys):
     assert cli.main(argv) == 2
     err = capsys.readouterr().err.strip().splitlines()

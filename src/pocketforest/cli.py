@@ -9,18 +9,11 @@ import traceback
 from pathlib import Path
 
 from . import __version__
-from .errors import InputError
+from .errors import InputError, OneLineParser
 from .defaults import LEAF_BUDGET, NESTED_REPEATS, TREE_LEAVES, TREE_MARGIN, TREES
 
 DEMO_DATA = Path(__file__).resolve().parents[2] / "demo_data" / "greenhouse_trial.csv"
 DEMO_TARGET = "yield_kg"
-
-
-class _Parser(argparse.ArgumentParser):
-    """Usage mistakes become one `error:` line and exit 2, like every other bad input."""
-
-    def error(self, message: str) -> None:  # type: ignore[override]
-        raise InputError(f"{message} (see `{self.prog} --help`)")
 
 
 def _common(p: argparse.ArgumentParser) -> None:
@@ -81,10 +74,10 @@ def _distill_options(p: argparse.ArgumentParser) -> None:
 
 
 def build_parser() -> argparse.ArgumentParser:
-    parser = _Parser(prog="pocketforest", description="Fit a random forest, distil it into an equation "
+    parser = OneLineParser(prog="pocketforest", description="Fit a random forest, distil it into an equation "
                      "and a small tree, and export a verified bundle that runs anywhere.")
     parser.add_argument("--version", action="version", version=f"pocketforest {__version__}")
-    sub = parser.add_subparsers(dest="command", parser_class=_Parser, metavar="COMMAND")
+    sub = parser.add_subparsers(dest="command", parser_class=OneLineParser, metavar="COMMAND")
 
     p = sub.add_parser("distill", help="the whole job: forest, terms, equation, tree, bundle")
     p.add_argument("data", help=".csv, .tsv or .parquet table")

@@ -8,7 +8,7 @@ import tempfile
 from dataclasses import asdict
 from pathlib import Path
 
-from ..errors import InputError
+from ..errors import InputError, OneLineParser
 from . import anchor, cluster, honest, power, small, speed, tree
 from .common import machine
 
@@ -65,7 +65,7 @@ def render(result: dict) -> str:
 
 
 def main(argv: list[str] | None = None) -> int:
-    parser = argparse.ArgumentParser(prog="python -m pocketforest.bench",
+    parser = OneLineParser(prog="python -m pocketforest.bench",
                                      description="Measure pocketforest's contract figures on this machine.")
     parser.add_argument("--quick", action="store_true", help="small sizes, well under a minute (nothing judged)")
     parser.add_argument("--out", help="also write the results as JSON to this file")
@@ -79,7 +79,11 @@ def main(argv: list[str] | None = None) -> int:
         if hasattr(module, "add_arguments"):
             module.add_arguments(parser)
     parser.add_argument("--child", nargs=2, help=argparse.SUPPRESS)
-    args = parser.parse_args(argv)
+    try:
+        args = parser.parse_args(argv)
+    except InputError as exc:
+        print(f"error: {exc}", file=sys.stderr)
+        return 2
     if args.child:
         kind, cfg = args.child
         print(json.dumps(CHILDREN[kind](json.loads(Path(cfg).read_text()))))
