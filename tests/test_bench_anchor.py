@@ -151,8 +151,50 @@ def test_cross_validation_with_folds_refits_the_hand_glms_on_each_fold(monkeypat
     assert row["equation_accuracy"] is not None                    # read from result.evaluation
 
 
+def _seed_row(name: str, seed: int, gap: float, plan: str = "test") -> dict:
+    """One anchor row as anchor_one returns it, with the figures the summary reads."""
+    return {"dataset": name, "source": "constructed", "n": 1000, "task": "regression", "family": "gaussian",
+            "metric": "r2", "seed": seed, "plan": plan, "forest_r2": 0.5, "equation_r2": 0.5 + gap,
+            "main_r2": 0.5, "splines_r2": 0.4, "gap": gap, "passed": bool(round(gap, 9) >= -anchor.GOAL_BEHIND),
+            "interaction_found": False, "seconds": 1.0, "notes": []}
+
+
+def test_a_table_passes_on_its_mean_gap_with_the_worst_seed_beside_it():
+    rows = ([_seed_row("noisy", s, g) for s, g in enumerate([-0.02, 0.005, 0.005])]
+            + [_seed_row("behind", s, g) for s, g in enumerate([-0.012, -0.011])]
+            + [_seed_row("edge", s, g) for s, g in enumerate([-0.01, -0.01])])
+    by = {s["dataset"]: s for s in anchor.summarise(rows)}
+    assert by["noisy"]["passed"] and by["noisy"]["worst_gap"] == -0.02 and by["noisy"]["seeds_short"] == 1
+    assert by["noisy"]["gap_se"] == pytest.approx(np.std([-0.02, 0.005, 0.005], ddof=1) / np.sqrt(3))
+    assert not by["behind"]["passed"] and by["behind"]["seeds_short"] == 2
+    assert by["edge"]["passed"]                      # exactly 0.01 behind, as for one seed
+    figs = {f.name.split()[1]: f for f in anchor.anchor_figures(rows)}
+    assert figs["noisy"].value == pytest.approx(-0.01 / 3) and figs["noisy"].passed
+    assert "worst -0.020, 1 beyond 0.01" in figs["noisy"].note
+    text = anchor.render_anchor(rows)
+    assert "1/3" in text and "SHORT" in text
+
+
+@pytest.mark.parametrize("plan,expected", [("test", list(range(10))), ("cross-validation", [0, 1])])
+def test_tables_judged_on_a_test_split_get_more_seeds(monkeypatch, plan, expected):
+    seen = []
+
+    def fake(ds, seed, trees):
+        seen.append(seed)
+        return _seed_row(ds.name, seed, 0.0, plan)
+
+    monkeypatch.setattr(anchor, "anchor_one", fake)
+    rows = anchor.run_anchor(datasets=("medpar",), seeds=(0, 1), trees=10, split_seeds=anchor.SPLIT_SEEDS)
+    assert seen == expected and [r["seed"] for r in rows] == expected
+    seen.clear()
+    anchor.run_anchor(datasets=("medpar",), seeds=(3,), trees=10, split_seeds=1)
+    assert seen == [3]                               # --anchor-split-seeds 1: the given seeds only
+
+
 @pytest.mark.parametrize("argv", [["--only", "nope"], ["--only", "anchor", "--anchor-datasets", "iris,nope"],
                                   ["--only", "anchor", "--anchor-seeds", "one"],
+                                  ["--only", "anchor", "--anchor-split-seeds", "ten"],
+                                  ["--only", "anchor", "--anchor-split-seeds", "0"],
                                   ["--only", "anchor", "--anchor-trees", "many"], ["--no-such-option"]])
 def test_bad_section_options_are_one_error_line(argv, capsys):
     assert cli.main(argv) == 2
