@@ -75,7 +75,7 @@ def _distill_options(p: argparse.ArgumentParser) -> None:
 
 def build_parser() -> argparse.ArgumentParser:
     parser = OneLineParser(prog="pocketforest", description="Fit a random forest, distil it into an equation "
-                     "and a small tree, and export a verified bundle that runs anywhere.")
+                           "and a small tree, and export a verified bundle that runs anywhere.")
     parser.add_argument("--version", action="version", version=f"pocketforest {__version__}")
     sub = parser.add_subparsers(dest="command", parser_class=OneLineParser, metavar="COMMAND")
 

@@ -48,6 +48,7 @@ from typing import Callable
 
 import numpy as np
 import pandas as pd
+from scipy.special import expit
 
 from ..errors import InputError
 from .common import Figure, Section, int_list, name_list, settings
@@ -353,7 +354,7 @@ def fit_hand(kind: str, frame: pd.DataFrame, y: np.ndarray, family: str, kinds: 
             e = np.exp(full)
             return e / e.sum(axis=1, keepdims=True)
         if family == "binomial":
-            return _two_columns(1.0 / (1.0 + np.exp(-eta)))
+            return _two_columns(expit(eta))   # no overflow for a runaway fit's large |eta|
         return np.asarray(_sm_family(family).link.inverse(eta), dtype=float)
 
     return HandFit(kind, form, width, rank, predict, "; ".join(notes))

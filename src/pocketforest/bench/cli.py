@@ -66,7 +66,7 @@ def render(result: dict) -> str:
 
 def main(argv: list[str] | None = None) -> int:
     parser = OneLineParser(prog="python -m pocketforest.bench",
-                                     description="Measure pocketforest's contract figures on this machine.")
+                           description="Measure pocketforest's contract figures on this machine.")
     parser.add_argument("--quick", action="store_true", help="small sizes, well under a minute (nothing judged)")
     parser.add_argument("--out", help="also write the results as JSON to this file")
     parser.add_argument("--work", help="folder for the temporary data and bundle (default: system temp)")
