@@ -219,3 +219,22 @@ def test_a_date_column_is_kept_as_categories_with_a_note_saying_so(tmp_path, dat
     assert not any("holds dates" in n for n in asked.notes)
     plain = load(write(tmp_path, "w.csv", csv_text(frame(45))), "y")
     assert not any("holds dates" in n for n in plain.notes)
+
+
+def test_labels_differing_only_in_case_or_spacing_are_kept_apart_with_a_note(tmp_path):
+    # invented: 50 "Yes" / 40 "no" answers and 6 typed " yes"; a column with "part shade" also
+    # typed "Part  shade" (capital, two spaces)
+    df = frame(96)
+    df["answer"] = ["Yes"] * 50 + ["no"] * 40 + [" yes"] * 6
+    df["shade"] = ["part shade"] * 60 + ["full"] * 30 + ["Part  shade"] * 6
+    table = load(write(tmp_path, "s.csv", csv_text(df.drop(columns="y"))), "answer")
+    assert set(table.classes) == {"no", "Yes", "yes"}
+    note = next(n for n in table.notes if n.startswith("target 'answer' has classes"))
+    assert "'Yes' (50 rows) and 'yes' (6 rows)" in note and "kept as separate classes" in note
+    note = next(n for n in table.notes if n.startswith("column 'shade' has levels"))
+    assert "'part shade' (60 rows) and 'Part  shade' (6 rows)" in note
+    assert sorted(next(f for f in table.features if f.name == "shade").categories) == ["Part  shade", "full",
+                                                                                      "part shade"]
+    # distinct words and one spelling each: no note
+    plain = load(write(tmp_path, "w.csv", csv_text(frame(45))), "y")
+    assert not any("letter case" in n for n in plain.notes)

@@ -17,7 +17,8 @@ from ..errors import InputError
 from ..features import Feature, Table
 from .messages import check_finite, examples, missing_hint, numbers_as_text_message, plural, quote_list, suggest
 from .reading import read_table
-from .values import category_series, date_format, is_boolean, numbers_as_text, parse_numbers, plain, sort_labels
+from .values import (category_series, date_format, is_boolean, numbers_as_text, parse_numbers, plain, sort_labels,
+                     spelling_variants)
 
 #: More levels than this cannot be one-hot encoded sensibly by the exports.
 MAX_CATEGORIES = 200
@@ -117,6 +118,10 @@ def prepare(
         )
     if classes is not None:
         counts = pd.Series(y_out).value_counts()
+        for group in spelling_variants(list(counts.index)):
+            notes.append(f"target '{target}' has classes that differ only in letter case or spacing: "
+                         + _spellings(group, counts) + ": they are kept as separate classes; if they mean "
+                         "the same, write them the same way in the file")
         rare = [c for c in classes if counts.get(c, 0) < _MIN_PER_CLASS]
         if rare:
             desc = ", ".join(f"'{c}' ({int(counts.get(c, 0))} rows)" for c in rare)
@@ -142,6 +147,12 @@ def prepare(
             dropped[col] = reason
             notes.append(f"dropped column '{col}': {_REASON_TEXT[reason]}")
             continue
+        if kind == "categorical":
+            counts = typed[typed != ""].value_counts()
+            for group in spelling_variants(list(counts.index)):
+                notes.append(f"column '{col}' has levels that differ only in letter case or spacing: "
+                             + _spellings(group, counts) + ": they are kept as separate levels; if they mean "
+                             "the same, write them the same way in the file")
         if kind == "categorical" and col not in categorical and date_format(typed) is not None:
             notes.append(f"column '{col}' holds dates ({typed.nunique()} distinct), used as categories with no "
                          "order: to use time as a number, save it as days since a start date, or pass --ignore "
@@ -194,6 +205,12 @@ def prepare(
         dropped_columns=dropped,
         rows_dropped_missing_target=dropped_rows,
     )
+
+
+def _spellings(group: list[str], counts: pd.Series) -> str:
+    """'Yes' (120 rows) and 'yes' (5 rows)."""
+    parts = [f"'{g}' ({plural(int(counts.get(g, 0)), 'row')})" for g in group]
+    return ", ".join(parts[:-1]) + " and " + parts[-1]
 
 
 _REASON_TEXT = {

@@ -104,6 +104,17 @@ def date_format(s: pd.Series) -> str | None:
     return None
 
 
+def spelling_variants(labels: Sequence[str]) -> list[list[str]]:
+    """Groups of labels that differ only in letter case or spacing ("Yes" and "yes", "part shade"
+    and "part  shade"), in the order given (callers pass the most common first). They stay separate categories:
+    case can mean something (chemical symbols), so the caller says so instead of merging them."""
+    groups: dict[str, list[str]] = {}
+    for label in labels:
+        if label:
+            groups.setdefault(" ".join(label.split()).casefold(), []).append(label)
+    return [g for g in groups.values() if len(g) > 1]
+
+
 def category_text(value: Any) -> str:
     """The text of one categorical value or class label.
 
