@@ -198,3 +198,15 @@ def test_an_error_in_a_later_chunk_closes_the_input_file(bundles, tmp_path):
         gc.collect()
     assert not [w for w in caught if issubclass(w.category, ResourceWarning)], [str(w.message) for w in caught]
     assert not (tmp_path / "p.csv").exists()
+
+
+def test_an_unseen_level_written_like_a_known_one_is_named_in_the_warning():
+    from pocketforest.features import Feature
+    from pocketforest.scoring.score import Stray
+    stray = Stray([Feature(name="shade", kind="categorical", onnx_input="shade", missing=0.0,
+                           categories=["none", "partial"])])
+    stray.add(pd.DataFrame({"shade": ["Partial", "east", "none", "Partial "]}))
+    (warning,) = stray.warnings()
+    assert "3 row(s) have categories never seen in training" in warning
+    assert "'Partial' matches the known level 'partial' except for letter case or spacing" in warning
+    assert "'east' matches" not in warning

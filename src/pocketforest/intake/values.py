@@ -111,8 +111,13 @@ def spelling_variants(labels: Sequence[str]) -> list[list[str]]:
     groups: dict[str, list[str]] = {}
     for label in labels:
         if label:
-            groups.setdefault(" ".join(label.split()).casefold(), []).append(label)
+            groups.setdefault(spelling_key(label), []).append(label)
     return [g for g in groups.values() if len(g) > 1]
+
+
+def spelling_key(label: str) -> str:
+    """A label with its case and spacing ignored (:func:`spelling_variants`)."""
+    return " ".join(label.split()).casefold()
 
 
 def category_text(value: Any) -> str:

@@ -26,6 +26,7 @@ from ..features import Feature
 from ..intake.coerce import coerce_for_scoring
 from ..intake.pieces import input_files
 from ..intake.reading import iter_table
+from ..intake.values import spelling_key
 from .bundle_io import read_manifest
 from .explain import Explainer, equation_columns
 from .runtime import Scorer, envelope_count
@@ -86,10 +87,15 @@ class Stray:
 
     def warnings(self) -> list[str]:
         out = []
+        levels = {f.name: f.categories or [] for f in self.features}
         for name, n in self.unseen.items():
             ex = ", ".join(repr(v) for v in self.examples.get(name, []))
+            known = {spelling_key(k): k for k in levels.get(name, [])}
+            alike = [f"{v!r} matches the known level {known[spelling_key(v)]!r} except for letter case or spacing"
+                     for v in self.examples.get(name, []) if spelling_key(v) in known]
             out.append(f"column '{name}': {n} row(s) have categories never seen in training (e.g. {ex}); "
-                       "the trees treat them as none of the known levels, the equation as the reference level")
+                       "the trees treat them as none of the known levels, the equation as the reference level"
+                       + (f" ({'; '.join(alike)})" if alike else ""))
         for name, n in self.outside.items():
             out.append(f"column '{name}': {n} row(s) lie outside the training range; "
                        "the equation's powers, hinges and logs are not to be trusted there")
