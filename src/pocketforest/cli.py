@@ -80,7 +80,7 @@ def build_parser() -> argparse.ArgumentParser:
     sub = parser.add_subparsers(dest="command", parser_class=OneLineParser, metavar="COMMAND")
 
     p = sub.add_parser("distill", help="the whole job: forest, terms, equation, tree, bundle")
-    p.add_argument("data", help=".csv, .tsv or .parquet table")
+    p.add_argument("data", help=".csv, .tsv or .parquet table, or an .xlsx workbook (its first sheet)")
     p.add_argument("--target", required=True, help="the outcome column")
     _distill_options(p)
     _decimal_comma(p)
@@ -94,7 +94,7 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("score", help="predict new rows with a bundle's ONNX model")
     p.add_argument("bundle")
-    p.add_argument("data", help="a .csv, .tsv or .parquet file, a folder of them, or a quoted pattern such as 'data/*.parquet'")
+    p.add_argument("data", help="a .csv, .tsv, .parquet or .xlsx file, a folder of .csv, .tsv or .parquet files, or a quoted pattern such as 'data/*.parquet'")
     p.add_argument("--model", choices=["forest", "tree", "equation"], required=True)
     p.add_argument("--out", help=".csv or .parquet file (default: CSV on stdout); with --engine dask a folder")
     p.add_argument("--keep", nargs="+", default=[], metavar="COL", help="input columns to copy into the output")
@@ -122,7 +122,7 @@ def build_parser() -> argparse.ArgumentParser:
                        "model's metrics, the surrogates' fidelity and loss with 95% intervals, and how far the "
                        "rows stray from the training data. Exit 1 when --max-loss or --max-outside is exceeded.")
     p.add_argument("bundle")
-    p.add_argument("data", help=".csv, .tsv or .parquet table holding the target column")
+    p.add_argument("data", help=".csv, .tsv or .parquet table, or an .xlsx workbook (its first sheet), holding the target column")
     p.add_argument("--json", action="store_true", help="print the findings as JSON")
     p.add_argument("--out", help="also write the findings as JSON to this .json file")
     p.add_argument("--max-loss", type=float, metavar="X",

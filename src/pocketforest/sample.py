@@ -36,7 +36,7 @@ import pandas as pd
 from .errors import InputError
 from .intake import MAX_CATEGORIES, MISSING_TOKENS
 from .intake.pieces import input_files
-from .intake.reading import _check_path, _csv_header
+from .intake.reading import WORKBOOK, _check_path, _csv_header, whole_files_only
 from .intake.values import DECIMAL_COMMA
 
 #: each level gets at least this many sample rows (or all its rows when it has fewer)
@@ -92,6 +92,8 @@ def _source(con, files: list[Path], decimal_comma: bool = False) -> tuple[list[s
     seeded order and the sample all see the numbers intake will type."""
     paths = "[" + ", ".join(_lit(str(f)) for f in files) + "]"  # a view cannot take parameters
     _, sep = _check_path(files[0], decimal_comma)   # intake's delimiter rule (and no decimal commas in Parquet)
+    if sep == WORKBOOK:
+        raise whole_files_only(files[0], "--sample")
     if sep is None:
         order = "CASE filename " + " ".join(f"WHEN {_lit(str(f))} THEN {i}" for i, f in enumerate(files)) + " END"
         try:

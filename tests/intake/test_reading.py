@@ -36,7 +36,8 @@ def test_bom_csv_tsv_and_parquet_agree(tmp_path):
 @pytest.mark.parametrize(
     "name, content, match",
     [
-        ("d.xlsx", "a,b\n1,2\n", r"'\.xlsx'.*\.csv, \.tsv or \.parquet"),
+        ("d.xls", "a,b\n1,2\n", r"'\.xls'.*\.csv, \.tsv, \.parquet or \.xlsx"),
+        ("d.xlsx", "a,b\n1,2\n", r"d\.xlsx: cannot be read as an Excel workbook.*save it again"),
         ("d.csv", b"", r"d\.csv: is empty"),
         ("d.csv", "a,b\n", r"d\.csv: has a header but no data rows"),
         ("d.csv", b"a,b\n1,caf\xe9\n", r"d\.csv: is not UTF-8.*re-save it with UTF-8"),
@@ -238,3 +239,74 @@ def test_labels_differing_only_in_case_or_spacing_are_kept_apart_with_a_note(tmp
     # distinct words and one spelling each: no note
     plain = load(write(tmp_path, "w.csv", csv_text(frame(45))), "y")
     assert not any("letter case" in n for n in plain.notes)
+
+
+def _workbook(path, sheets: dict[str, list[list]]):
+    """An .xlsx file written cell by cell with openpyxl (rows as given; None is an empty cell)."""
+    import openpyxl
+    book = openpyxl.Workbook()
+    book.remove(book.active)
+    for name, rows in sheets.items():
+        sheet = book.create_sheet(name)
+        for row in rows:
+            sheet.append(row)
+    book.save(path)
+    return path
+
+
+def test_a_workbooks_first_sheet_reads_like_the_csv_saved_from_it(tmp_path):
+    base = frame(45)
+    typed = [[float(x), c, float(y)] for x, c, y in base.itertuples(index=False)]
+    book = _workbook(tmp_path / "d.xlsx", {"trial": [["x", "color", "y"], *typed],
+                                            "readme": [["notes written by hand"]]})
+    from_csv = load(write(tmp_path, "d.csv", csv_text(base)), "y")
+    from_book = load(book, "y")
+    pd.testing.assert_frame_equal(from_book.data, from_csv.data)
+    assert [f.to_dict() for f in from_book.features] == [f.to_dict() for f in from_csv.features]
+    assert from_book.notes[0] == ("read sheet 'trial', the first of the workbook's 2 sheets: move the table's "
+                                  "sheet to the front to read another")
+    assert not any("sheet" in n for n in from_csv.notes)
+    # chunks for scoring: the same rows, and only the asked columns
+    chunks = list(iter_table(book, chunksize=20, columns=["color", "x"]))
+    assert [first for first, _ in chunks] == [0, 20, 40]
+    whole = pd.concat([c for _, c in chunks], ignore_index=True)
+    pd.testing.assert_frame_equal(whole, read_table(book)[["x", "color"]])
+
+
+def test_workbook_cells_become_the_text_a_csv_would_hold(tmp_path):
+    import datetime as dt
+    book = _workbook(tmp_path / "c.xlsx", {"s": [
+        [None, None],                                     # an empty row above the header is skipped
+        ["when", "value", "flag", "note", None],          # the used range runs one column past the table
+        [dt.datetime(2024, 1, 13), 6.02, True, "n/a", None],
+        [dt.datetime(2024, 1, 14, 10, 30), 7, False, "  fine ", None],
+        [None, None, None, None, None],                   # an empty row inside: skipped, as in a CSV
+        [dt.date(2024, 1, 15), 1e-7, None, "NA", None],
+    ]})
+    df = read_table(book)
+    assert list(df.columns) == ["when", "value", "flag", "note"]
+    assert df["when"].tolist() == ["2024-01-13", "2024-01-14 10:30:00", "2024-01-15"]
+    assert df["value"].tolist() == ["6.02", "7", "1e-07"]
+    assert df["flag"].tolist()[:2] == ["TRUE", "FALSE"] and pd.isna(df["flag"].iloc[2])
+    # "n/a" is text, as in a CSV (the number check names it); "NA" is missing; spaces are stripped
+    assert df["note"].tolist()[:2] == ["n/a", "fine"] and pd.isna(df["note"].iloc[2])
+
+
+@pytest.mark.parametrize("sheet, match", [
+    ([["a", None, "y"], [1, 5, 2]], r"column B of sheet 's' has values but no name"),
+    ([["a", "a", "y"], [1, 5, 2]], r"duplicate column names 'a'"),
+    ([["a", "y"]], r"sheet 's' has a header but no data rows"),
+    ([[None]], r"sheet 's' is empty"),
+])
+def test_workbook_mistakes_are_one_line_each(tmp_path, sheet, match):
+    book = _workbook(tmp_path / "m.xlsx", {"s": sheet})
+    raises(match, read_table, book)
+
+
+def test_a_workbook_refuses_the_options_that_split_files(tmp_path):
+    from pocketforest.intake.pieces import plan_pieces
+    from pocketforest.sample import draw
+    book = _workbook(tmp_path / "w.xlsx", {"s": [["x", "y"], [1, 2], [2, 3]]})
+    raises(r"an Excel workbook stores its numbers as numbers", read_table, book, decimal_comma=True)
+    raises(r"--engine dask reads \.csv, \.tsv and \.parquet", plan_pieces, [book], ["x"], [])
+    raises(r"--sample reads \.csv", draw, str(book), "y", 1, 0)

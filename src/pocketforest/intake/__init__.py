@@ -4,9 +4,10 @@ Everything a user can get wrong in a data file is caught here and raised as
 :class:`~pocketforest.errors.InputError` with one line that names the file, column or value and
 says what to do, so later stages can assume clean, typed input.
 
-Modules: :mod:`.reading` (CSV/TSV/Parquet, whole or in chunks, file errors), :mod:`.values` (text
-cleaning, ``category_text``, numbers, booleans), :mod:`.screening` (``prepare``/``load``: target,
-task, column typing, ONNX input names), :mod:`.coerce` (``coerce_for_scoring``) and
+Modules: :mod:`.reading` (CSV/TSV/Parquet and .xlsx workbooks, whole or in chunks, file errors),
+:mod:`.values` (text cleaning, ``category_text``, numbers, booleans), :mod:`.screening`
+(``prepare``/``load``: target, task, column typing, ONNX input names), :mod:`.coerce`
+(``coerce_for_scoring``) and
 :mod:`.messages` (pieces of the error lines). The schema (``Feature``, ``Table``) is in
 :mod:`pocketforest.features`; it is re-exported here with the rest of the public names.
 """

@@ -20,7 +20,8 @@ import pandas as pd
 from ..errors import InputError
 from ..features import Feature
 from .coerce import coerce_for_scoring
-from .reading import _check_path, _csv_header, _parquet_error, _parquet_selection, iter_table, parquet_chunks
+from .reading import (WORKBOOK, _check_path, _csv_header, _parquet_error, _parquet_selection, iter_table,
+                      parquet_chunks, whole_files_only)
 
 DATA_SUFFIXES = (".csv", ".tsv", ".parquet")
 #: rows per cluster piece when a Parquet file has several row groups (a piece is one task)
@@ -100,6 +101,8 @@ def plan_pieces(files: Sequence[Path], needed: Sequence[str], keep: Sequence[str
     pieces: list[Piece] = []
     for path in files:
         _, sep = _check_path(path, decimal_comma)   # the delimiter rule, and no decimal commas in Parquet
+        if sep == WORKBOOK:
+            raise whole_files_only(path, "--engine dask")
         if sep is None:
             names, pf = _parquet_names(path)
             check_columns(path, names, needed, keep)

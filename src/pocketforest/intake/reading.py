@@ -1,12 +1,17 @@
-"""Reading CSV/TSV/Parquet files, whole or in chunks, with every file problem as one clear line.
+"""Reading CSV/TSV/Parquet files and Excel workbooks, whole or in chunks, with every file problem
+as one clear line.
 
 CSV/TSV files are read as text and typed column by column later (not by pandas' guesses),
 because a single stray word in a numeric column should be reported, not silently turn the column
-into categories. Column names and missing-value text are cleaned the same way for every format.
+into categories. A workbook's first sheet is read as the text a CSV saved from it would hold, so it
+is typed and checked exactly like one. Column names and missing-value text are cleaned the same
+way for every format.
 """
 from __future__ import annotations
 
 import csv
+import datetime as dt
+import math
 import os
 import re
 import warnings
@@ -21,13 +26,18 @@ from ..errors import InputError
 from .messages import SEMICOLON_HINT, printable, quote_list, shorten
 from .values import clean_text, decimal_points, plain
 
-_EXTENSIONS = {".csv": ",", ".tsv": "\t", ".parquet": None}
+#: A file's kind by extension: a CSV/TSV delimiter, None for Parquet, WORKBOOK for Excel.
+WORKBOOK = "workbook"
+_EXTENSIONS = {".csv": ",", ".tsv": "\t", ".parquet": None, ".xlsx": WORKBOOK}
+#: What the readers take, for messages.
+KINDS_TEXT = ".csv, .tsv, .parquet or .xlsx"
 _DELIMITER_NAMES = {",": "comma", "\t": "tab", ";": "semicolon", "|": "pipe"}
 
 
 def read_table(path: str | os.PathLike[str], columns: Sequence[str] | None = None, *,
                decimal_comma: bool = False) -> pd.DataFrame:
-    """Read a whole CSV/TSV/Parquet file into a frame with missing values as NaN.
+    """Read a whole CSV/TSV/Parquet file or a workbook's first sheet into a frame with missing
+    values as NaN.
 
     CSV/TSV columns stay text (typing happens in :func:`prepare` / :func:`coerce_for_scoring`);
     Parquet columns keep their native types, with text columns cleaned the same way as CSV.
@@ -37,6 +47,8 @@ def read_table(path: str | os.PathLike[str], columns: Sequence[str] | None = Non
     spreadsheets save text where the comma is the decimal mark (R's ``read.csv2`` convention).
     """
     p, sep = _check_path(path, decimal_comma)
+    if sep == WORKBOOK:
+        return _read_workbook(p, columns)
     if sep is None:
         df = _read_parquet(p, columns)
         if len(df) == 0:
@@ -82,6 +94,13 @@ def iter_table(
     """
     p, sep = _check_path(path, decimal_comma)
     first = 0
+    if sep == WORKBOOK:   # a sheet holds at most 1,048,576 rows: read whole, handed out in chunks
+        whole = _read_workbook(p, columns)
+        for start in range(0, len(whole), chunksize):
+            chunk = whole.iloc[start:start + chunksize].reset_index(drop=True)
+            chunk.attrs = dict(whole.attrs)
+            yield start, chunk
+        return
     if sep is None:
         import pyarrow.parquet as pq
 
@@ -141,12 +160,12 @@ def _check_path(path: str | os.PathLike[str], decimal_comma: bool = False) -> tu
     if ext not in _EXTENSIONS:
         shown = f"'{p.suffix}'" if p.suffix else "no extension"
         raise InputError(
-            f"{p}: unsupported file type ({shown}): use a .csv, .tsv or .parquet file"
+            f"{p}: unsupported file type ({shown}): use a {KINDS_TEXT} file"
         )
     if not p.exists():
         raise InputError(f"{p}: file not found: check the path")
     if p.is_dir():
-        raise InputError(f"{p}: is a directory, not a data file: give the path of a .csv, .tsv or .parquet file")
+        raise InputError(f"{p}: is a directory, not a data file: give the path of a {KINDS_TEXT} file")
     try:
         size = p.stat().st_size
         with open(p, "rb"):
@@ -156,13 +175,20 @@ def _check_path(path: str | os.PathLike[str], decimal_comma: bool = False) -> tu
     if size == 0:
         raise InputError(f"{p}: is empty: it needs a header line and data rows")
     sep = _EXTENSIONS[ext]
-    if decimal_comma and sep is None:
+    if decimal_comma and sep in (None, WORKBOOK):
         raise InputError(_parquet_decimal_comma(p))
     return p, (";" if decimal_comma and sep == "," else sep)
 
 
 def _parquet_decimal_comma(p: Path) -> str:
-    return f"{p}: --decimal-comma is for .csv and .tsv files: a Parquet file stores its numbers as numbers; drop the option"
+    kind = "an Excel workbook" if p.suffix.lower() == ".xlsx" else "a Parquet file"
+    return f"{p}: --decimal-comma is for .csv and .tsv files: {kind} stores its numbers as numbers; drop the option"
+
+
+def whole_files_only(p: Path, what: str) -> InputError:
+    """For readers that split files (DuckDB sampling, the cluster's pieces): a workbook is read whole."""
+    return InputError(f"{p}: {what} reads .csv, .tsv and .parquet files; a workbook's sheet is read whole "
+                      "(at most 1,048,576 rows): drop the option, or save the sheet as .csv or .parquet")
 
 
 def _csv_kwargs(sep: str) -> dict[str, Any]:
@@ -364,4 +390,70 @@ def _clean_parquet_frame(df: pd.DataFrame, p: Path) -> pd.DataFrame:
     df.columns = names
     for col in names:
         df[col] = plain(df[col])
+    return df
+
+
+def _cell_text(value: Any) -> str:
+    """One workbook cell as a CSV saved from the sheet would hold it: numbers in full precision,
+    dates as ISO 8601 (the time only when it is not midnight), TRUE/FALSE, empty for no value."""
+    if value is None or value == "":
+        return ""
+    if isinstance(value, bool):
+        return "TRUE" if value else "FALSE"
+    if isinstance(value, (int, np.integer)):
+        return str(int(value))
+    if isinstance(value, (float, np.floating)):
+        f = float(value)
+        if math.isnan(f):
+            return ""
+        return str(int(f)) if f.is_integer() and abs(f) < 2**53 else repr(f)
+    if isinstance(value, dt.datetime):
+        return value.date().isoformat() if value.time() == dt.time(0) else value.isoformat(sep=" ")
+    if isinstance(value, (dt.date, dt.time)):
+        return value.isoformat()
+    return str(value)
+
+
+def _read_workbook(p: Path, columns: Sequence[str] | None = None) -> pd.DataFrame:
+    """The first sheet of an .xlsx workbook (openpyxl through pandas), as text like a CSV: the first
+    non-empty row names the columns; empty rows are skipped; a column with neither a name nor a
+    value (the sheet's used range reaching past the table) is left out. Formula cells give the
+    value the spreadsheet last saved. ``attrs["sheet"]``: the sheet read and how many there are."""
+    import zipfile
+
+    from openpyxl.utils import get_column_letter
+
+    try:
+        with pd.ExcelFile(p, engine="openpyxl") as book:
+            sheets = book.sheet_names
+            raw = pd.read_excel(book, sheet_name=sheets[0], header=None, dtype=object, keep_default_na=False,
+                                na_filter=False)
+    except (zipfile.BadZipFile, KeyError, ValueError, OSError) as exc:
+        raise InputError(f"{p}: cannot be read as an Excel workbook ({shorten(str(exc) or type(exc).__name__)}): "
+                         "save it again from the spreadsheet as .xlsx") from None
+    text = raw.map(_cell_text) if len(raw.columns) else raw
+    text = text[(text != "").any(axis=1)] if len(text.columns) else text
+    if len(text) == 0:
+        raise InputError(f"{p}: sheet '{sheets[0]}' is empty: it needs a header row and data rows")
+    header = [h.strip() for h in text.iloc[0]]
+    body = text.iloc[1:].reset_index(drop=True)
+    used = [i for i, h in enumerate(header) if h or (body.iloc[:, i] != "").any()]
+    blank = [get_column_letter(int(raw.columns[i]) + 1) for i in used if not header[i]]
+    if blank:
+        raise InputError(f"{p}: column {', '.join(blank)} of sheet '{sheets[0]}' has values but no name: give "
+                         "every column a name in the header row")
+    header = [header[i] for i in used]
+    body = body.iloc[:, used]
+    dups = sorted({n for n in header if header.count(n) > 1})
+    if dups:
+        raise InputError(f"{p}: duplicate column names {quote_list(dups)}: rename them so each is unique")
+    body.columns = header
+    if len(body) == 0:
+        raise InputError(f"{p}: sheet '{sheets[0]}' has a header but no data rows: add rows below the header")
+    if columns is not None:
+        wanted = set(map(str, columns))
+        body = body[[c for c in header if c in wanted]]
+    df = pd.DataFrame({c: clean_text(body[c].astype(object)) for c in body.columns}, index=body.index)
+    df.attrs["file_header"] = header
+    df.attrs["sheet"] = {"name": str(sheets[0]), "sheets": len(sheets)}
     return df

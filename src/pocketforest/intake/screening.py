@@ -44,9 +44,14 @@ def load(
 ) -> Table:
     """Read a file and prepare it (see :func:`read_table`, :func:`prepare`)."""
     df = read_table(path, decimal_comma=decimal_comma)
-    return prepare(
+    sheet = df.attrs.get("sheet")
+    table = prepare(
         df, target, task=task, categorical=categorical, ignore=ignore, source=str(path), min_rows=min_rows
     )
+    if sheet and sheet["sheets"] > 1:
+        table.notes.insert(0, f"read sheet '{sheet['name']}', the first of the workbook's {sheet['sheets']} sheets: "
+                              "move the table's sheet to the front to read another")
+    return table
 
 
 def column_named(name: str, columns: Sequence[str]) -> str:
