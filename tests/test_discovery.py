@@ -328,6 +328,29 @@ def test_count_criterion_is_a_negative_binomial_with_its_dispersion_fixed():
     assert gaussian.alpha == 0.0 and not gaussian.count
 
 
+def test_count_dispersion_of_an_outcome_with_extra_zeros_is_the_residuals_own():
+    """Constructed: an amount (mean about 1,000) that is zero for a quarter of the rows whatever
+    the inputs, otherwise gamma–Poisson with α = 0.3 and a log-linear mean. Its mean–variance
+    relation from the residuals gives α ≈ (α + π) / (1 − π) = 0.73 (π = 0.25, the zero share: the
+    mixture's variance over its squared mean), while the NB2 likelihood, which must also fit the
+    zeros, puts α several times higher, and then every row looks like noise. The criterion keeps
+    the smaller, the residuals' estimate (Criterion.set_dispersion)."""
+    from pocketforest.discovery.select import Criterion
+    rng = np.random.default_rng(8)
+    n = 4000
+    x, z = rng.normal(size=n), rng.normal(size=n)
+    mu = np.exp(6.9 + 0.3 * x + 0.1 * z)
+    y = np.where(rng.random(n) < 0.25, 0.0, rng.poisson(mu * rng.gamma(1 / 0.3, 0.3, n))).astype(float)
+    crit = Criterion(y, "regression", None, "poisson")
+    crit.set_dispersion(x[:, None])
+    assert crit.alpha_ml > 2 * crit.alpha_moment and crit.alpha == crit.alpha_moment
+    assert abs(crit.alpha - (0.3 + 0.25) / 0.75) <= 0.1, crit.alpha
+    # z's 0.1 slope enters with room to spare (−2 log-likelihood drops by about 58; with the ML α by
+    # about 12, below this bar)
+    dev_x = crit(x[:, None]) - 2 * np.log(n)
+    assert dev_x - (crit(np.column_stack([x, z])) - 3 * np.log(n)) > 3 * np.log(n)
+
+
 def test_count_score_test_gives_nothing_for_a_block_the_design_already_spans():
     """Constructed: two indicators that are never 1 together (like the good/fair health flags of
     the RAND data) and overdispersed counts (gamma–Poisson, α near 1). The indicators' centred
