@@ -205,7 +205,9 @@ def test_bad_section_options_are_one_error_line(argv, capsys):
 # Sizes as each table's own documentation states them: R MASS help pages for birthwt ("189 rows
 # and 10 columns"), Pima.tr / Pima.te ("200 subjects", "the remaining 332") and biopsy ("699 rows
 # and 11 columns"); R COUNT help pages for rwm1984 ("3,874 observations") and medpar ("1495
-# observations"); the palmerpenguins docstring for penguins ("Samples total 344"; its per-class line
+# observations"); R Ecdat help pages for Housing, Participation, Workinghours and Computers ("number
+# of observations: 546", "872", "3382", "6259"); R MASS help pages for nlschools ("2287 rows") and quine
+# ("146 rows and 5 columns"); the palmerpenguins docstring for penguins ("Samples total 344"; its per-class line
 # reads 152/168/124, which sums to 444: the file holds 152 Adelie, 68 Chinstrap and 124 Gentoo).
 @pytest.mark.parametrize("name,rows,columns,dropped", [
     ("penguins", 344, 8, ()),
@@ -214,6 +216,12 @@ def test_bad_section_options_are_one_error_line(argv, capsys):
     ("biopsy", 699, 10, ("ID",)),
     ("rwm1984", 3874, 10, ("hospvis", "edlevel1", "edlevel4")),
     ("medpar", 1495, 6, ("type1", "provnum")),
+    ("housing", 546, 12, ()),
+    ("participation", 872, 7, ()),
+    ("workinghours", 3382, 12, ()),
+    ("computers", 6259, 10, ()),
+    ("nlschools", 2287, 5, ("class",)),                            # the school class's id
+    ("quine", 146, 5, ()),
 ])
 def test_public_tables_are_the_documented_ones_without_copies_of_the_outcome(name, rows, columns, dropped):
     ds = anchor.DATASETS[name]

