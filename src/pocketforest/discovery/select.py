@@ -92,6 +92,8 @@ class Criterion:
         self.n = len(y)
         self.count = task == "regression" and family in COUNT_FAMILIES
         self.alpha = 0.0                      # NB2 dispersion of the count likelihood (0: Poisson)
+        self.alpha_ml: float | None = None    # its two estimates (set_dispersion)
+        self.alpha_moment: float | None = None
         if task == "regression":
             self.y = np.asarray(y, dtype=float)
         else:

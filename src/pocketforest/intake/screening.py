@@ -123,10 +123,7 @@ def prepare(
         )
     if classes is not None:
         counts = pd.Series(y_out).value_counts()
-        for group in spelling_variants(list(counts.index)):
-            notes.append(f"target '{target}' has classes that differ only in letter case or spacing: "
-                         + _spellings(group, counts) + ": they are kept as separate classes; if they mean "
-                         "the same, write them the same way in the file")
+        notes += _spelling_notes(f"target '{target}'", "classes", counts)
         rare = [c for c in classes if counts.get(c, 0) < _MIN_PER_CLASS]
         if rare:
             desc = ", ".join(f"'{c}' ({int(counts.get(c, 0))} rows)" for c in rare)
@@ -153,11 +150,7 @@ def prepare(
             notes.append(f"dropped column '{col}': {_REASON_TEXT[reason]}")
             continue
         if kind == "categorical":
-            counts = typed[typed != ""].value_counts()
-            for group in spelling_variants(list(counts.index)):
-                notes.append(f"column '{col}' has levels that differ only in letter case or spacing: "
-                             + _spellings(group, counts) + ": they are kept as separate levels; if they mean "
-                             "the same, write them the same way in the file")
+            notes += _spelling_notes(f"column '{col}'", "levels", typed[typed != ""].value_counts())
         if kind == "categorical" and col not in categorical and date_format(typed) is not None:
             notes.append(f"column '{col}' holds dates ({typed.nunique()} distinct), used as categories with no "
                          "order: to use time as a number, save it as days since a start date, or pass --ignore "
@@ -212,10 +205,16 @@ def prepare(
     )
 
 
-def _spellings(group: list[str], counts: pd.Series) -> str:
-    """'Yes' (120 rows) and 'yes' (5 rows)."""
-    parts = [f"'{g}' ({plural(int(counts.get(g, 0)), 'row')})" for g in group]
-    return ", ".join(parts[:-1]) + " and " + parts[-1]
+def _spelling_notes(what: str, noun: str, counts: pd.Series) -> list[str]:
+    """One note per group of labels spelt alike (:func:`values.spelling_variants`); ``counts``:
+    rows per label, most common first, as ``value_counts`` gives them."""
+    notes = []
+    for group in spelling_variants(list(counts.index)):
+        parts = [f"'{g}' ({plural(int(counts[g]), 'row')})" for g in group]
+        notes.append(f"{what} has {noun} that differ only in letter case or spacing: "
+                     f"{', '.join(parts[:-1])} and {parts[-1]}: they are kept as separate {noun}; if they mean "
+                     "the same, write them the same way in the file")
+    return notes
 
 
 _REASON_TEXT = {

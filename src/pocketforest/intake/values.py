@@ -106,8 +106,9 @@ def date_format(s: pd.Series) -> str | None:
 
 def spelling_variants(labels: Sequence[str]) -> list[list[str]]:
     """Groups of labels that differ only in letter case or spacing ("Yes" and "yes", "part shade"
-    and "part  shade"), in the order given (callers pass the most common first). They stay separate categories:
-    case can mean something (chemical symbols), so the caller says so instead of merging them."""
+    and "part  shade"), in the order given (callers pass the most common first). They stay
+    separate categories: case can mean something (chemical symbols), so the caller says so
+    instead of merging them."""
     groups: dict[str, list[str]] = {}
     for label in labels:
         if label:
