@@ -11,7 +11,6 @@ from __future__ import annotations
 
 import csv
 import datetime as dt
-import math
 import os
 import re
 import warnings
@@ -24,7 +23,7 @@ import pandas as pd
 
 from ..errors import InputError
 from .messages import SEMICOLON_HINT, printable, quote_list, shorten
-from .values import clean_text, decimal_points, plain
+from .values import clean_text, decimal_points, number_text, plain
 
 #: A file's kind by extension: a CSV/TSV delimiter, None for Parquet, WORKBOOK for Excel.
 WORKBOOK = "workbook"
@@ -400,13 +399,9 @@ def _cell_text(value: Any) -> str:
         return ""
     if isinstance(value, bool):
         return "TRUE" if value else "FALSE"
-    if isinstance(value, (int, np.integer)):
-        return str(int(value))
-    if isinstance(value, (float, np.floating)):
-        f = float(value)
-        if math.isnan(f):
-            return ""
-        return str(int(f)) if f.is_integer() and abs(f) < 2**53 else repr(f)
+    number = number_text(value)
+    if number is not None:
+        return number
     if isinstance(value, dt.datetime):
         return value.date().isoformat() if value.time() == dt.time(0) else value.isoformat(sep=" ")
     if isinstance(value, (dt.date, dt.time)):

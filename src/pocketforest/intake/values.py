@@ -121,6 +121,21 @@ def spelling_key(label: str) -> str:
     return " ".join(label.split()).casefold()
 
 
+def number_text(value: Any) -> str | None:
+    """The shortest text of a stored number (integer-valued floats as ``"1"``, NaN as empty), or
+    None when ``value`` is not a number: one rule for Parquet values and workbook cells."""
+    if isinstance(value, (bool, np.bool_)):
+        return None
+    if isinstance(value, (int, np.integer)):
+        return str(int(value))
+    if isinstance(value, (float, np.floating)):
+        f = float(value)
+        if math.isnan(f):
+            return ""
+        return str(int(f)) if f.is_integer() else repr(f)
+    return None
+
+
 def category_text(value: Any) -> str:
     """The text of one categorical value or class label.
 
@@ -132,15 +147,9 @@ def category_text(value: Any) -> str:
         return ""
     if isinstance(value, (bool, np.bool_)):
         return "True" if value else "False"
-    if isinstance(value, (int, np.integer)):
-        return str(int(value))
-    if isinstance(value, (float, np.floating)):
-        f = float(value)
-        if math.isnan(f):
-            return ""
-        if f.is_integer():
-            return str(int(f))
-        return repr(f)
+    number = number_text(value)
+    if number is not None:
+        return number
     text = str(value).strip()
     if text in MISSING_TOKENS:
         return ""
